@@ -1,0 +1,3 @@
+from commitadvisor.cli import main
+
+main()
