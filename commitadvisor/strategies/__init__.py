@@ -1,0 +1,1 @@
+"""One module per commit strategy; each gives ``evaluate_regime(case, strategy, ctx)``."""

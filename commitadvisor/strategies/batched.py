@@ -1,0 +1,110 @@
+"""Batched commit: the writer holds each flush to gather commits, for at most the gathering
+window after the first pending commit or until the target number is pending.
+
+Model (open arrivals, a renewal approximation checked against the simulator): a cycle is an
+idle wait (only when nothing is pending when a flush ends), a gathering G = min(window,
+time for target - 1 more arrivals ~ Gamma(target - 1, lambda)), and a flush S carrying
+lambda E[cycle] commits. By PASTA a commit arriving while idle is the first and waits G + S;
+one arriving during a gathering waits the rest of it (its equilibrium residual) and S; one
+arriving during a flush waits the rest of the flush, a new gathering and a flush.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from commitadvisor import latency as L
+from commitadvisor.case import Case
+from commitadvisor.results import RegimeResult
+from commitadvisor.strategies.common import Partial, assemble, saturated_result, saturation
+from commitadvisor.strategies.context import RegimeContext, stall_mixture
+from commitadvisor.strategies.synchronous import device_exposures
+
+__all__ = ["evaluate_regime", "Capped"]
+
+
+@dataclass(frozen=True)
+class Capped(L.Latency):
+    """min(base, cap_ms): the gathering ends at the window or when the target is reached."""
+
+    base: L.Latency
+    cap_ms: float
+
+    def cdf(self, x_ms: Any) -> np.ndarray:
+        x = np.asarray(x_ms, dtype=float)
+        return np.where(x >= self.cap_ms, 1.0, self.base.cdf(x))
+
+    def quantile(self, q: Any) -> np.ndarray:
+        return np.minimum(self.base.quantile(q), self.cap_ms)
+
+    @property
+    def mean_ms(self) -> float:
+        x = np.linspace(0, self.cap_ms, 4001)
+        sf = self.base.sf(x)
+        return float(np.sum(np.diff(x) * (sf[1:] + sf[:-1]) / 2))
+
+    @property
+    def second_moment_ms2(self) -> float:
+        x = np.linspace(0, self.cap_ms, 4001)
+        g = 2 * x * self.base.sf(x)
+        return float(np.sum(np.diff(x) * (g[1:] + g[:-1]) / 2))
+
+    @property
+    def upper_ms(self) -> float:
+        return self.cap_ms
+
+
+def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
+    dev = ctx.devices[s.device]
+    reg = case.regime(ctx.regime)
+    duration = reg.duration_s if reg else None
+    lam = ctx.open_rate_per_ms
+    notes = []
+    if lam is None:
+        lam = _closed_rate_guess(ctx, s, dev)
+        notes.append("closed sessions: batched commit evaluated with open arrivals at the "
+                     "sessions' rate (approximation; check it with the simulator)")
+    bw_cap = dev.bandwidth_bytes_per_ms / ctx.log_bytes
+    if lam >= bw_cap:
+        return saturated_result(ctx.regime, ctx.time_share, saturation(
+            f"bandwidth:{dev.name}", bw_cap, lam, duration, f"the bandwidth of {dev.name}"), 1)
+    k = s.gather_target_commits
+    gather = Capped(L.Gamma(k - 1, 1.0 / lam), s.gather_window_ms)
+    batch = 1.0 + lam * gather.mean_ms
+    for _ in range(6):
+        flush = dev.flush(batch, ctx.log_bytes)
+        idle = (1.0 / lam) * flush.laplace(lam)
+        cycle = idle + gather.mean_ms + flush.mean_ms
+        batch = lam * cycle
+    cpu = ctx.cpu_wait(lam)
+    cpu_cap = ctx.cpu_ceiling_per_ms(batch, dev.overhead_ms)
+    if cpu is None or (cpu_cap is not None and lam >= cpu_cap):
+        cap = cpu_cap if cpu_cap is not None else ctx.cpus / ctx.cpu_ms_per_commit
+        return saturated_result(ctx.regime, ctx.time_share, saturation(
+            "cpu", cap, lam, duration, "the host's CPU"), 1)
+    shares = np.array([idle, gather.mean_ms, flush.mean_ms]) / cycle
+    first = L.convolve(gather, flush)
+    during_gather = L.convolve(L.residual(gather), flush)
+    during_flush = L.convolve(L.residual(flush), gather, flush)
+    resp = L.mixture(shares, [first, during_gather, during_flush])
+    resp, stalled = stall_mixture(resp, dev, lam, ctx.log_bytes)
+    if stalled:
+        notes.append(f"{dev.name} is stalled {stalled:.1%} of the time; folded in as a "
+                     "time-based event (quasi-static approximation)")
+    ack = L.add_constant(L.convolve(cpu, resp), ctx.wake_cost(batch))
+    return assemble(ctx.regime, ctx.time_share, Partial(
+        ack=ack, durable=ack, throughput_per_ms=lam, exposures=device_exposures(dev),
+        flushes_per_ms=((dev.name, 1.0 / cycle),), mean_batch=batch,
+        writer_busy=flush.mean_ms / cycle,
+        cpu_busy=(lam * ctx.cpu_ms_per_commit / ctx.cpus) if ctx.cpus else None,
+        copies_at_ack=1 if dev.device.counts_as_durable else 0, notes=tuple(notes)))
+
+
+def _closed_rate_guess(ctx: RegimeContext, s, dev) -> float:
+    """Throughput of N sessions when each commit waits about half a window plus a flush:
+    X = N / (Z + CPU + window/2 + E[S]) (interactive response time law)."""
+    r = s.gather_window_ms / 2 + dev.flush(s.gather_target_commits, ctx.log_bytes).mean_ms
+    return ctx.sessions / (ctx.think_ms + ctx.cpu_ms_per_commit + r)

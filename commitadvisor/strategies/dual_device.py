@@ -1,0 +1,118 @@
+"""Dual-device log: each device has its own natural-group-commit writer, both fed by the
+same commit stream; the commit is acknowledged after the first (or both) durable copies.
+
+With responses T_a and T_b from each device's group-commit law, ack = min(T_a, T_b)
+(``first``) or max (``both``); correlated slowness enters as a shared-cause share s:
+sf_min = (1 - s) sf_a sf_b + s min(sf_a, sf_b) (order statistics, Ross, Introduction to
+Probability Models, ch. 5, for the independent part). A device whose flushes do not count
+as durable never acknowledges. The second copy's lag is |T_a - T_b| (the time the
+acknowledged commit exists on one device only).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from commitadvisor import latency as L
+from commitadvisor.case import Case
+from commitadvisor.results import RegimeResult
+from commitadvisor.strategies.common import (
+    Partial, assemble, from_window, safe, saturated_result, saturation, unbounded,
+)
+from commitadvisor.strategies.context import RegimeContext, stall_mixture
+from commitadvisor.strategies.synchronous import writer_response
+
+__all__ = ["evaluate_regime", "lag_distribution"]
+
+
+def lag_distribution(a: L.Latency, b: L.Latency) -> L.GridLatency:
+    """|T_a - T_b| for independent T_a, T_b: P(|D| <= x) = P(Ta - Tb <= x) - P(Ta - Tb < -x),
+    integrated over T_b's quantiles (midpoint rule in probability)."""
+    u = np.concatenate([np.linspace(0.0005, 0.9895, 990), 0.99 + np.linspace(0.00005, 0.00995,
+                                                                              200),
+                        0.9999 + np.linspace(5e-7, 9.95e-5, 200)])
+    w = np.concatenate([np.full(990, 0.99 / 990), np.full(200, 0.0099 / 200),
+                        np.full(200, 0.0000999 / 200)])
+    w = w / w.sum()
+    yb = b.quantile(u)
+    ya = a.quantile(u)
+    hi = max(float(ya.max()), float(yb.max()))
+    x = np.concatenate([[0.0], np.geomspace(hi * 1e-6, hi, 1500)])
+    c = np.empty_like(x)
+    for i in range(0, len(x), 250):
+        xi = x[i:i + 250, None]
+        # P(Ta <= Tb + x) - P(Ta < Tb - x) averaged over Tb
+        c[i:i + 250] = (a.cdf(yb[None, :] + xi) - a.cdf(np.maximum(yb[None, :] - xi, 0)
+                                                         - 1e-12)) @ w
+    c = np.clip(np.maximum.accumulate(c), 0.0, 1.0)
+    mean, second = L._moments_from_cdf(x, c)
+    return L.GridLatency(x, c, mean, second, float(1 - c[-1]), "second copy's lag")
+
+
+def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
+    reg = case.regime(ctx.regime)
+    duration = reg.duration_s if reg else None
+    lam = ctx.open_rate_per_ms
+    notes = []
+    if lam is None:
+        fast = min((ctx.devices[d] for d in s.devices), key=lambda d: d.profile.mean_ms)
+        lam = ctx.sessions / (ctx.think_ms + ctx.cpu_ms_per_commit + fast.profile.mean_ms)
+        notes.append("closed sessions: the dual-device log is evaluated with open arrivals at "
+                     "the sessions' rate (approximation; check it with the simulator)")
+    responses, flushes = {}, []
+    busy = 0.0
+    batch_mean = 1.0
+    for name in s.devices:
+        dev = ctx.devices[name]
+        bw_cap = dev.bandwidth_bytes_per_ms / ctx.log_bytes
+        if lam >= bw_cap:
+            return saturated_result(ctx.regime, ctx.time_share, saturation(
+                f"bandwidth:{name}", bw_cap, lam, duration, f"the bandwidth of {name}"), 0)
+        resp, fl, batch, wb = writer_response(ctx, dev, lam)
+        resp, _ = stall_mixture(resp, dev, lam, ctx.log_bytes)
+        responses[name] = resp
+        flushes.append((name, fl))
+        busy = max(busy, wb)
+        batch_mean = max(batch_mean, batch)
+    cpu = ctx.cpu_wait(lam)
+    if cpu is None:
+        return saturated_result(ctx.regime, ctx.time_share, saturation(
+            "cpu", ctx.cpus / ctx.cpu_ms_per_commit, lam, duration, "the host's CPU"), 0)
+    a_name, b_name = s.devices
+    ta, tb = responses[a_name], responses[b_name]
+    durable = {n: ctx.devices[n].device.counts_as_durable for n in s.devices}
+    share = s.shared_cause_share
+    if s.ack_after == "both":
+        writer = L.maximum(ta, tb, share)
+        copies = sum(durable.values())
+    elif all(durable.values()) or not any(durable.values()):
+        writer = L.minimum(ta, tb, share)
+        copies = 1 if any(durable.values()) else 0
+    else:
+        only = a_name if durable[a_name] else b_name
+        writer = responses[only]
+        copies = 1
+        notes.append(f"only {only} counts as durable, so only its flush acknowledges")
+    ack = L.add_constant(L.convolve(cpu, writer), ctx.wake_cost(batch_mean))
+    lag = lag_distribution(ta, tb)
+    if not any(durable.values()):
+        host = unbounded("host_crash", "neither device counts as durable")
+    elif s.ack_after == "first" and not all(durable.values()):
+        host = safe("host_crash")
+    else:
+        host = safe("host_crash")
+        notes.append("a host crash loses nothing acknowledged only if recovery reads the "
+                     "longer valid log of the two devices")
+    if s.ack_after == "both" and all(durable.values()):
+        dev_loss = safe("device_loss")
+    elif s.ack_after == "both" or all(durable.values()):
+        dev_loss = from_window(case, "device_loss", lag, lam, None,
+                               "lambda E[lag] (Little's law); lag = the second copy's delay")
+    else:
+        dev_loss = unbounded("device_loss", "only one device counts as durable")
+    return assemble(ctx.regime, ctx.time_share, Partial(
+        ack=ack, durable=ack, throughput_per_ms=lam,
+        exposures=(safe("process_crash"), host, dev_loss), flushes_per_ms=tuple(flushes),
+        mean_batch=batch_mean, writer_busy=busy,
+        cpu_busy=(lam * ctx.cpu_ms_per_commit / ctx.cpus) if ctx.cpus else None,
+        copies_at_ack=copies, notes=tuple(notes)))

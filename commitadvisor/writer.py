@@ -1,0 +1,247 @@
+"""The log writer as a queue: natural group commit, one flush per commit, closed sessions.
+
+All times in ms, rates in commits per ms inside the functions unless a name says ``_per_s``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from commitadvisor import latency as L
+
+__all__ = [
+    "OpenGroupCommit",
+    "open_group_commit",
+    "one_flush_per_commit",
+    "ClosedGroupCommit",
+    "closed_group_commit",
+    "geometric_sum",
+]
+
+
+@dataclass(frozen=True)
+class OpenGroupCommit:
+    """Natural group commit under Poisson arrivals (one writer, unlimited batch)."""
+
+    response: L.Latency  # commit wait from arrival at the writer to the flush's completion
+    idle_chance: float  # p = E[exp(-lambda S)]: no commit arrives during a flush
+    writer_busy: float  # rho_w, the writer's busy share
+    flushes_per_ms: float
+    mean_batch: float
+
+
+def open_group_commit(flush: L.Latency, rate_per_ms: float) -> OpenGroupCommit:
+    """Commit response law of natural group commit with Poisson arrivals.
+
+    One writer; a commit arriving at an idle writer starts a flush at once; commits arriving
+    during a flush go into the next one. With S independent of batch size, a busy run holds a
+    geometric number of flushes with success chance p = E[exp(-lambda S)] (Wald: E[busy] =
+    E[S]/p); the busy share is rho_w = (E[S]/p) / (1/lambda + E[S]/p); by PASTA a commit finds
+    the writer busy with chance rho_w and then waits the equilibrium residual of the flush in
+    progress and one whole flush: T = S w.p. 1 - rho_w, T = R + S' w.p. rho_w, so
+    E[T] = E[S] + rho_w E[S^2] / (2 E[S]) (the inspection paradox; Kleinrock, Queueing
+    Systems vol. 1, 1975, section 5.2 for the residual). The deterministic special case gives
+    E[T] = F (1.5 x + e^-x) / (x + e^-x), x = lambda F (commitadvisor's CHECKS values).
+    """
+    es = flush.mean_ms
+    p = flush.laplace(rate_per_ms)
+    busy_run = es / p
+    rho = busy_run / (1.0 / rate_per_ms + busy_run)
+    flushes = (1.0 / p) / (1.0 / rate_per_ms + busy_run)
+    waiting = L.convolve(L.residual(flush), flush)
+    response = L.mixture([1.0 - rho, rho], [flush, waiting])
+    return OpenGroupCommit(response, p, rho, flushes, rate_per_ms / flushes)
+
+
+def geometric_sum(part: L.Latency, rho: float) -> L.Latency:
+    """Sum of N copies of ``part``, P(N = n) = (1 - rho) rho^n (an atom at 0 of 1 - rho).
+
+    The M/G/1 waiting time is this sum with ``part`` the equilibrium residual of the
+    service time (the Pollaczek-Khinchine formula in its Benes form; Kleinrock 1975, 5.7).
+    Computed on a uniform grid by FFT: the transform is (1 - rho) / (1 - rho phi(w)).
+    """
+    from scipy.fft import irfft, next_fast_len, rfft
+
+    mean = rho / (1 - rho) * part.mean_ms
+    second = (rho / (1 - rho) * part.second_moment_ms2
+              + 2 * (rho / (1 - rho)) ** 2 * part.mean_ms**2)
+    span = max(float(part.upper_ms), mean * 60 + part.upper_ms * 2)
+    n = 1 << 17
+    step = span / n
+    m = next_fast_len(2 * n)
+    edges = (np.arange(m) + 0.5) * step
+    masses = np.diff(np.concatenate([[0.0], part.cdf(edges)]))
+    phi = rfft(masses, m)
+    dist = irfft((1 - rho) / (1 - rho * phi), m)[:n]
+    c = np.clip(np.maximum.accumulate(np.cumsum(np.clip(dist, 0, None))), 0.0, 1.0)
+    x = (np.arange(n) + 0.5) * step
+    x = np.concatenate([[0.0], x])
+    c = np.concatenate([[1 - rho], c])
+    return L.GridLatency(x, c, mean, second, float(max(0.0, 1 - c[-1])), "M/G/1 wait")
+
+
+def one_flush_per_commit(flush: L.Latency, rate_per_ms: float) -> L.Latency | None:
+    """Sojourn time of an M/G/1 queue: each commit its own flush, first come first served.
+
+    Mean E[T] = E[S] + lambda E[S^2] / (2 (1 - rho)) (Pollaczek-Khinchine; Kleinrock 1975).
+    Returns None when rho = lambda E[S] >= 1 (the device cannot keep up).
+    """
+    rho = rate_per_ms * flush.mean_ms
+    if rho >= 1:
+        return None
+    if rho < 1e-9:
+        return flush
+    return L.convolve(geometric_sum(L.residual(flush), rho), flush)
+
+
+# --------------------------------------------------------------------------- closed sessions
+@dataclass(frozen=True)
+class ClosedGroupCommit:
+    throughput_per_ms: float
+    response: L.Latency  # from a session's commit to its flush's completion
+    mean_response_ms: float  # N / X - Z (Little's law)
+    mean_batch: float
+    flushes_per_ms: float
+    writer_busy: float
+
+
+def _quadrature(flush: L.Latency) -> tuple[np.ndarray, np.ndarray]:
+    """Nodes (ms) and weights for E[g(S)], dense in the upper tail where rare slow flushes
+    live (midpoint rule in probability on [0, .99], [.99, .9999], [.9999, 1 - 1e-8])."""
+    us, ws = [], []
+    for lo, hi, n in ((0.0, 0.99, 300), (0.99, 0.9999, 150), (0.9999, 1 - 1e-8, 150)):
+        edges = np.linspace(lo, hi, n + 1)
+        us.append((edges[:-1] + edges[1:]) / 2)
+        ws.append(np.diff(edges))
+    u, w = np.concatenate(us), np.concatenate(ws)
+    return flush.quantile(u), w / w.sum()
+
+
+def closed_group_commit(flush_for_batch, sessions: int, think_ms: float) -> ClosedGroupCommit:
+    """Natural group commit with N sessions and exponential think time Z: the embedded
+    Markov chain at flush completions (commitadvisor DESIGN, item 2).
+
+    State b = the next batch's size. During a flush of duration S each of the N - b thinking
+    sessions commits with chance 1 - exp(-S/Z), so the next batch is Binomial(N - b,
+    1 - exp(-S/Z)) averaged over S; an empty batch means an idle wait (mean Z/N) and a
+    batch of one. Throughput X = E[commits per cycle] / E[cycle]; R = N/X - Z (Little).
+    ``flush_for_batch(b)`` gives the flush-time distribution for a batch of b commits.
+    """
+    from scipy.stats import binom
+
+    n = sessions
+    if think_ms <= 0:
+        # every session is always waiting: each flush carries all N commits
+        f = flush_for_batch(n)
+        x = n / f.mean_ms
+        return ClosedGroupCommit(x, f, f.mean_ms, float(n), 1 / f.mean_ms, 1.0)
+    trans = np.zeros((n + 1, n + 1))
+    cycle = np.zeros(n + 1)
+    nodes_by_b = {}
+    for b in range(1, n + 1):
+        s, w = _quadrature(flush_for_batch(b))
+        nodes_by_b[b] = (s, w)
+        pi = -np.expm1(-s / think_ms)
+        k = np.arange(n - b + 1)
+        pmf = binom.pmf(k[None, :], n - b, pi[:, None])
+        trans[b, : n - b + 1] = w @ pmf
+        cycle[b] = float(w @ s)
+    trans[0] = trans[1]
+    cycle[0] = think_ms / n + cycle[1]
+    commits = np.arange(n + 1, dtype=float)
+    commits[0] = 1.0
+    # stationary law of the batch-size chain
+    a = trans.T - np.eye(n + 1)
+    a[-1] = 1.0
+    rhs = np.zeros(n + 1)
+    rhs[-1] = 1.0
+    pi_b = np.clip(np.linalg.solve(a, rhs), 0, None)
+    pi_b /= pi_b.sum()
+    x = float(pi_b @ commits) / float(pi_b @ cycle)
+    mean_r = n / x - think_ms
+    busy = float(pi_b @ (cycle - np.where(np.arange(n + 1) == 0, think_ms / n, 0.0))) / float(
+        pi_b @ cycle)
+    # response law: a commit that arrives during a flush of length s (state b) waits what is
+    # left of it (arrival time ~ uniform on the flush, as s << Z) and then the next flush;
+    # a commit that ends an idle wait waits one flush of a batch of one.
+    w_idle = pi_b[0] * 1.0
+    parts_w, parts_s = [], []
+    for b in range(1, n + 1):
+        s, w = nodes_by_b[b]
+        arrivals = (n - b) * -np.expm1(-s / think_ms)
+        weight = (pi_b[b] + (pi_b[0] if b == 1 else 0.0)) * w * arrivals
+        parts_w.append(weight)
+        parts_s.append(s)
+    ws, ss = np.concatenate(parts_w), np.concatenate(parts_s)
+    total = ws.sum() + w_idle
+    mean_batch = float(pi_b @ commits)
+    next_flush = flush_for_batch(max(1, int(round(mean_batch))))
+    if ws.sum() <= 0:
+        response = flush_for_batch(1)
+    else:
+        left = _time_left(ss, ws / ws.sum(), think_ms)
+        response = L.mixture([w_idle / total, ws.sum() / total],
+                             [flush_for_batch(1), L.convolve(left, next_flush)])
+    return ClosedGroupCommit(x, response, mean_r, mean_batch, float(1 / (pi_b @ cycle)), busy)
+
+
+def _time_left(s: np.ndarray, w: np.ndarray, think_ms: float) -> L.GridLatency:
+    """Time left of the flush in progress when a thinking session commits during it.
+
+    Given a flush of length s, a session's exponential clock (mean Z) that rings during it
+    rings at t with density proportional to exp(-t/Z) on [0, s]; the time left r = s - t has
+    cdf (exp(r/Z) - 1) / (exp(s/Z) - 1). Mixed over the flushes, weighted by arrivals.
+    """
+    order = np.argsort(s)
+    s, w = s[order], w[order]
+    # merge nodes into at most 600 groups of similar length to bound the work per point
+    starts = np.unique(np.concatenate([[0], np.geomspace(1, len(s), 600).astype(int) - 1]))
+    ws = np.add.reduceat(w, starts)
+    ss = np.add.reduceat(w * s, starts) / np.maximum(ws, 1e-300)
+    keep = ws > 0
+    ss, ws = ss[keep], ws[keep]
+    x = np.concatenate([[0.0], np.geomspace(max(ss[0], 1e-6) * 1e-4, ss[-1], 3000)])
+    z = think_ms
+    c = np.empty_like(x)
+    for i in range(0, len(x), 500):
+        xi = x[i:i + 500, None]
+        inside = np.minimum(xi, ss[None, :])
+        # (e^{r/Z} - 1)/(e^{s/Z} - 1) written with non-positive exponents for stability
+        num = np.exp((inside - ss[None, :]) / z) * -np.expm1(-inside / z)
+        den = -np.expm1(-ss[None, :] / z)
+        c[i:i + 500] = (num / den) @ ws
+    c = np.clip(np.maximum.accumulate(c), 0.0, 1.0)
+    mean, second = L._moments_from_cdf(x, c)
+    return L.GridLatency(x, c, mean, second, 0.0, "time left of the flush in progress")
+
+
+def little_mean_check(x_per_ms: float, sessions: int, think_ms: float) -> float:
+    """Interactive response time law R = N/X - Z (Little's law on the closed loop)."""
+    return sessions / x_per_ms - think_ms
+
+
+def erlang_c(servers: int, offered: float) -> float:
+    """Erlang's C formula: chance that an arrival waits in an M/M/c queue (offered = lambda/mu).
+
+    Computed with the numerically stable Erlang-B recursion (Erlang 1917; Kleinrock 1975).
+    """
+    if offered >= servers:
+        return 1.0
+    b = 1.0
+    for k in range(1, servers + 1):
+        b = offered * b / (k + offered * b)
+    return servers * b / (servers - offered * (1 - b))
+
+
+def mmc_wait(servers: int, service_ms: float, rate_per_ms: float) -> L.Latency | None:
+    """Waiting time in an M/M/c queue: an atom at 0 of 1 - C and an exponential tail,
+    P(W > t) = C exp(-(c mu - lambda) t). None when saturated."""
+    a = rate_per_ms * service_ms
+    if a >= servers:
+        return None
+    c = erlang_c(servers, a)
+    tail = L.Exponential(1.0 / (servers / service_ms - rate_per_ms))
+    return L.mixture([1 - c, c], [L.Fixed(0.0), tail]) if c > 1e-12 else L.Fixed(0.0)
+
