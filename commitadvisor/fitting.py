@@ -460,6 +460,15 @@ def _fit_mixture_em(
     return None
 
 
+def _mixture_notes(theta: tuple[float, ...] | None) -> list[str]:
+    if theta is not None and theta[0] > 0.5:
+        return [
+            f"the mixture's slower part holds {theta[0]:.1%} of the observations: the data "
+            "have two modes rather than a fast body with rare outliers"
+        ]
+    return []
+
+
 # --------------------------------------------------------------------------- samples
 
 
@@ -544,6 +553,7 @@ def fit_samples(samples_ms: np.ndarray) -> FitReport:
         cdf, _ = _cdf_sf(family, theta, xs)
         fits.append(_make_fit(family, theta, log_lik, _ks_samples(xs, cdf)))
 
+    notes.extend(_mixture_notes(thetas.get("mixture")))
     q = np.quantile(xs, _QUANTILES)
     best = min(fits, key=lambda f: f.aic)
     if n < 1000:
@@ -812,6 +822,7 @@ def fit_cumulative_histogram(upper_bounds_ms, cumulative_counts) -> FitReport:
             theta, ll = _maximise_interval("mixture", best_mix[0], edges, counts)
             thetas["mixture"] = (_order_mixture(theta), ll)
 
+    notes.extend(_mixture_notes(thetas["mixture"][0] if "mixture" in thetas else None))
     finite = np.isfinite(b)
     emp = cum[finite] / total
     fits = []

@@ -25,11 +25,14 @@ from dataclasses import dataclass
 __all__ = [
     "DEFAULT_COUNT",
     "FLUSH_CALLS",
+    "FlushSummary",
     "MEASURE_NOTICE",
     "MeasureResult",
     "PLAUSIBLE_MIN_FLUSH_US",
+    "check_measure_directory",
     "measure_flush_latency",
     "plausibility_warning",
+    "summarise_flushes",
     "write_samples_csv",
 ]
 
@@ -69,6 +72,38 @@ class MeasureResult:
     notice: str = MEASURE_NOTICE
 
 
+@dataclass(frozen=True)
+class FlushSummary:
+    """Percentiles (numpy's default linear interpolation), mean and maximum of samples, in µs."""
+
+    count: int
+    p50_us: float
+    p90_us: float
+    p99_us: float
+    p999_us: float
+    max_us: float
+    mean_us: float
+
+
+def summarise_flushes(samples_us: Sequence[float]) -> FlushSummary:
+    """Summary figures (µs) of timed flushes; ValueError when there are none."""
+    import numpy as np
+
+    x = np.asarray(samples_us, dtype=float)
+    if x.size == 0:
+        raise ValueError("no flush samples to summarise")
+    p50, p90, p99, p999 = (float(v) for v in np.quantile(x, (0.5, 0.9, 0.99, 0.999)))
+    return FlushSummary(
+        count=int(x.size),
+        p50_us=p50,
+        p90_us=p90,
+        p99_us=p99,
+        p999_us=p999,
+        max_us=float(x.max()),
+        mean_us=float(x.mean()),
+    )
+
+
 def plausibility_warning(median_us: float, flush_call: str) -> str | None:
     """A warning when the median flush (µs) is implausibly fast, else None.
 
@@ -91,7 +126,8 @@ def plausibility_warning(median_us: float, flush_call: str) -> str | None:
     )
 
 
-def _check_directory(directory: str | os.PathLike[str]) -> str:
+def check_measure_directory(directory: str | os.PathLike[str]) -> str:
+    """The directory as a string; ValueError unless it is an existing writable directory."""
     path = os.fspath(directory)
     if not os.path.exists(path):
         raise ValueError(f"{path}: no such directory")
@@ -190,7 +226,7 @@ def measure_flush_latency(
     Raises ValueError when ``directory`` is not an existing writable directory or a
     setting is invalid; OSError from the device is passed on.
     """
-    path = _check_directory(directory)
+    path = check_measure_directory(directory)
     count, duration_s, prefill = _settings(
         block_bytes, count, duration_s, flush_call, append, prefill_bytes
     )

@@ -15,7 +15,7 @@ from collections.abc import Iterator
 
 import numpy as np
 
-__all__ = ["UNITS", "read_histogram_csv", "read_samples_csv", "to_ms"]
+__all__ = ["UNITS", "declared_unit", "read_histogram_csv", "read_samples_csv", "to_ms"]
 
 UNITS = ("us", "ms", "s")
 """Units a file may state its values in."""
@@ -52,6 +52,37 @@ def _lines(path: str | os.PathLike[str]) -> Iterator[tuple[int, str]]:
         if not line or line.startswith("#"):
             continue
         yield number, line
+
+
+def declared_unit(path: str | os.PathLike[str]) -> str | None:
+    """The unit a file declares in a ``# unit: us`` comment line before its first value.
+
+    None when there is no such line; ValueError (naming file and line) when the declared
+    unit is not one of UNITS.
+    """
+    name = os.fspath(path)
+    try:
+        with open(path, encoding="utf-8") as fh:
+            for number, raw in enumerate(fh, start=1):
+                line = raw.strip().lstrip("\ufeff")
+                if not line:
+                    continue
+                if not line.startswith("#"):
+                    return None
+                key, sep, value = line[1:].partition(":")
+                if sep and key.strip().lower() == "unit":
+                    unit = value.strip()
+                    if unit not in UNITS:
+                        raise ValueError(
+                            f"{name} line {number}: declared unit {unit!r} is not one of "
+                            f"{', '.join(UNITS)}"
+                        )
+                    return unit
+    except UnicodeDecodeError:
+        raise ValueError(f"{name}: not a text file (it is not valid UTF-8)") from None
+    except OSError as exc:
+        raise ValueError(f"{name}: cannot read it: {exc.strerror or exc}") from None
+    return None
 
 
 def _number(text: str) -> float | None:

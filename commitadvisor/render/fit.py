@@ -89,7 +89,7 @@ def _choice(report: FitReport, fit: FamilyFit) -> str:
 
 def _footer_lines(report: FitReport) -> list[str]:
     lines = [f"Chosen: {report.best_family}. Rule: {report.selection_note}."]
-    lines.append(f"Data figures: {report.data_quantile_method}.")
+    lines.append(f"Data: {report.data_quantile_method}.")
     lines.append(f"KS: {report.ks_method}.")
     for family, why in report.omitted:
         lines.append(f"Not fitted: {family}: {why}.")

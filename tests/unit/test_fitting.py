@@ -368,3 +368,16 @@ def test_entries_validate_as_case_file_profiles(small_report):
     for fit in small_report.fits:
         profile = adapter.validate_python(_parse(profile_entry_toml(fit)))
         assert isinstance(profile, expected[fit.family])
+
+
+def test_declared_unit_comment(tmp_path):
+    from commitadvisor.measure_io import declared_unit
+
+    path = tmp_path / "flushes.csv"
+    path.write_text("# from the rig\n# unit: us\n12.5\n")
+    assert declared_unit(path) == "us"
+    path.write_text("12.5\n# unit: s\n")
+    assert declared_unit(path) is None  # only before the first value
+    path.write_text("# unit: minutes\n1\n")
+    with pytest.raises(ValueError, match=r"flushes\.csv line 1: declared unit 'minutes'"):
+        declared_unit(path)

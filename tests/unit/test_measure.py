@@ -186,3 +186,20 @@ def test_result_warning_follows_its_median(tmp_path):
 def test_notice_says_it_writes_and_results_vary():
     assert "writes to the device" in MEASURE_NOTICE
     assert "vary over time" in MEASURE_NOTICE
+
+
+def test_summarise_flushes_against_numpy():
+    from commitadvisor.measure import summarise_flushes
+
+    samples = [float(v) for v in range(1, 1001)]  # 1..1000 us
+    s = summarise_flushes(samples)
+    # numpy's default (linear, Hyndman and Fan definition 7): position (n - 1) q.
+    assert s.p50_us == pytest.approx(500.5)
+    assert s.p90_us == pytest.approx(900.1)
+    assert s.p99_us == pytest.approx(990.01)
+    assert s.p999_us == pytest.approx(999.001)
+    assert s.max_us == 1000.0
+    assert s.mean_us == pytest.approx(500.5)
+    assert s.count == 1000
+    with pytest.raises(ValueError):
+        summarise_flushes([])
