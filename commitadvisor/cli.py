@@ -7,7 +7,7 @@ Known input errors end with one clear message per problem and exit status 2. Hea
 from __future__ import annotations
 
 import sys
-from enum import Enum
+from enum import Enum, StrEnum
 from pathlib import Path
 from typing import Annotated, NoReturn
 
@@ -119,6 +119,199 @@ def new_case(
         sys.stderr.write(f"{path}: cannot be written: {exc.strerror or exc}\n")
         raise typer.Exit(EXIT_INPUT) from None
     typer.echo(f"wrote {path}; next: commitadvisor check {path}")
+
+
+# --------------------------------------------------------------- profiles from measurements
+
+
+class Unit(StrEnum):
+    us = "us"
+    ms = "ms"
+    s = "s"
+
+
+class FitFormat(StrEnum):
+    table = "table"
+    toml = "toml"
+
+
+class FlushCall(StrEnum):
+    fdatasync = "fdatasync"
+    fsync = "fsync"
+    o_dsync = "o-dsync"
+
+
+def _fail_file(path: Path, exc: Exception) -> NoReturn:
+    """One message naming the file (the readers' messages already do), exit status 2."""
+    message = str(exc)
+    if not message.startswith(str(path)):
+        message = f"{path}: {message}"
+    sys.stderr.write(message + "\n")
+    raise typer.Exit(EXIT_INPUT)
+
+
+_FIT_PROFILE_HELP = (
+    "Fit latency profiles to measurements and print a profile entry ready to paste.\n\n"
+    "Fits lognormal, gamma, Weibull and a mixture (fast body plus a share of slow outliers) "
+    "by maximum likelihood, compares them (Kolmogorov-Smirnov statistic, AIC) with the data's "
+    "p50, p99, p99.9 and mean (ms), chooses the lowest AIC and prints its entry in the case "
+    "file's profile format (times in ms). Exit status 2 with one message naming the file when "
+    "it cannot be read or fitted."
+)
+
+
+@app.command("fit-profile", help=_FIT_PROFILE_HELP)
+def fit_profile(
+    samples: Annotated[Path, typer.Argument(
+        help="CSV file of measured latencies, one value per line (or, with --histogram, lines "
+             "'upper_bound,cumulative_count'). Blank lines and lines starting with '#' are "
+             "skipped; one header line is allowed.", show_default=False)],
+    unit: Annotated[Unit | None, typer.Option(
+        "--unit", help="Unit of the values (or of the histogram's upper bounds): us, ms or s. "
+                       "Default: the unit the file declares in a '# unit: ...' line, as "
+                       "'measure' writes it; required when the file declares none.")] = None,
+    histogram: Annotated[bool, typer.Option(
+        "--histogram", help="The file is a cumulative histogram (bucket upper bounds "
+                            "ascending, the last may be inf; counts cumulative); fit by "
+                            "interval-censored likelihood.")] = False,
+    fmt: Annotated[FitFormat, typer.Option(
+        "--format", help="table: the comparison of all fits, then the profile entry; toml: "
+                         "only the one-line profile entry of the chosen fit.")] = FitFormat.table,
+    no_color: NoColor = False,
+) -> None:
+    """Fit latency profiles to a samples or histogram file; see _FIT_PROFILE_HELP."""
+    from commitadvisor.fitting import fit_cumulative_histogram, fit_samples, profile_entry_toml
+    from commitadvisor.measure_io import declared_unit, read_histogram_csv, read_samples_csv
+
+    try:
+        unit_name = unit.value if unit is not None else declared_unit(samples)
+        if unit_name is None:
+            raise ValueError("the file does not declare its unit (no '# unit: ...' line); "
+                             "give --unit us, ms or s")
+        if histogram:
+            report = fit_cumulative_histogram(*read_histogram_csv(samples, unit_name))
+        else:
+            report = fit_samples(read_samples_csv(samples, unit_name))
+    except ValueError as exc:
+        _fail_file(samples, exc)
+    if fmt is FitFormat.toml:
+        typer.echo(profile_entry_toml(report.best))
+    elif no_color or not sys.stdout.isatty():
+        from commitadvisor.render.fit import fit_report_plain
+
+        typer.echo(fit_report_plain(report), nl=False)
+    else:
+        from commitadvisor.render.console import make_console
+        from commitadvisor.render.fit import render_fit_report
+
+        render_fit_report(report, make_console(no_color))
+
+
+_MEASURE_HELP = (
+    "Time write + flush on the device behind DIRECTORY and summarise it in µs.\n\n"
+    "Writes real data: first a scratch file is filled and flushed, then each timed write of "
+    "--block-bytes overwrites it in place (or appends, with --append) and is flushed with "
+    "--flush-call. Prints p50, p90, p99, p99.9, max and mean (µs) and warns when flushes are "
+    "too fast to tell durable from ignored. Exit status 2 with one message on a bad directory "
+    "or setting, 130 when interrupted (the scratch file is removed either way)."
+)
+
+
+@app.command("measure", help=_MEASURE_HELP)
+def measure(
+    directory: Annotated[Path, typer.Argument(
+        help="An existing writable directory on the device to test (the log's device). A "
+             "scratch file is written there and removed afterwards.", show_default=False)],
+    block_bytes: Annotated[int, typer.Option(
+        "--block-bytes", min=1, help="Bytes per timed write; use the log's write size.")] = 8192,
+    count: Annotated[int | None, typer.Option(
+        "--count", min=1, help="Number of timed writes (default 1000). Not with "
+                               "--duration.")] = None,
+    duration: Annotated[float | None, typer.Option(
+        "--duration", help="Keep writing for this many seconds instead of a fixed "
+                           "count.")] = None,
+    flush_call: Annotated[FlushCall, typer.Option(
+        "--flush-call", help="How each write is made durable: fdatasync (the data and what is "
+                             "needed to read it back), fsync (the data and all metadata), "
+                             "o-dsync (each write on a file opened with O_DSYNC)."
+    )] = FlushCall.fdatasync,
+    append: Annotated[bool, typer.Option(
+        "--append", help="Append to a growing file instead of overwriting a prefilled one in "
+                         "place; each flush then also records the new file size, which can "
+                         "cost about twice as much.")] = False,
+    out: Annotated[Path | None, typer.Option(
+        "--out", help="Write the samples (µs, one per line, with a '# unit: us' line) to this "
+                      "CSV file, ready for fit-profile.")] = None,
+    no_color: NoColor = False,
+) -> None:
+    """Measure write + flush latency on a directory's device; see _MEASURE_HELP."""
+    from commitadvisor.measure import (
+        check_measure_directory,
+        measure_flush_latency,
+        write_samples_csv,
+    )
+    from commitadvisor.render.console import make_console
+    from commitadvisor.render.measure import (
+        measure_progress,
+        render_measure_notice,
+        render_measure_result,
+    )
+
+    if count is not None and duration is not None:
+        sys.stderr.write("give either --count or --duration, not both\n")
+        raise typer.Exit(EXIT_INPUT)
+    try:
+        check_measure_directory(directory)
+    except ValueError as exc:
+        _fail_file(directory, exc)
+    if out is not None and not out.parent.is_dir():
+        _fail_file(out, ValueError("its directory does not exist"))
+    console = make_console(no_color)
+    render_measure_notice(console, str(directory))
+    try:
+        with measure_progress(console, "write + flush") as progress:
+            result = measure_flush_latency(
+                directory, block_bytes=block_bytes, count=count, duration_s=duration,
+                flush_call=flush_call.value, append=append, progress=progress)
+    except ValueError as exc:
+        _fail_file(directory, exc)
+    except OSError as exc:
+        _fail_file(directory, ValueError(f"a write or flush failed: {exc.strerror or exc}"))
+    except KeyboardInterrupt:
+        sys.stderr.write("interrupted; the scratch file was removed\n")
+        raise typer.Exit(130) from None
+    if out is not None:
+        try:
+            write_samples_csv(out, result.samples_us)
+        except OSError as exc:
+            _fail_file(out, ValueError(f"cannot be written: {exc.strerror or exc}"))
+    render_measure_result(console, result, None if out is None else str(out))
+
+
+@app.command()
+def evaluate(
+    case: CaseArg,
+    fmt: Annotated[Fmt, typer.Option("--format", help="table: one table per strategy, a row "
+                                     "per regime; json: the documented evaluation document.")
+                   ] = Fmt.table,
+    no_color: NoColor = False,
+) -> None:
+    """Compute, per strategy and regime, the commit response time (mean, p50, p99, p99.9 in
+    ms), the exposure window per kind of failure and the commits at risk, throughput,
+    flushes per second and CPU use; then the blend over the whole cycle."""
+    from commitadvisor.evaluate import evaluate as run
+
+    c = _load(case)
+    ev = run(c)
+    if fmt is Fmt.json:
+        from commitadvisor.render.evaluate import render_json
+
+        sys.stdout.write(render_json(ev))
+        return
+    from commitadvisor.render.console import make_console
+    from commitadvisor.render.evaluate import render_table
+
+    render_table(make_console(no_color), ev)
 
 
 def main() -> None:
