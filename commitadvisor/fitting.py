@@ -23,6 +23,7 @@ __all__ = [
     "FitReport",
     "MixturePart",
     "MIN_SAMPLES",
+    "SIGMA_RATIO_MIN",
     "fit_cumulative_histogram",
     "fit_samples",
     "profile_entry_toml",
@@ -36,6 +37,16 @@ N_PARAMETERS = {"lognormal": 2, "gamma": 2, "weibull": 2, "mixture": 5}
 
 _QUANTILES = (0.5, 0.99, 0.999)
 _MIN_COMPONENT_COUNT = 5.0  # a mixture part must carry at least this many observations
+# The mixture's two sigmas (of ln x) are kept within this ratio of each other. Without such
+# a bound the likelihood of a normal mixture with unequal variances is unbounded and full
+# of spurious maxima (a narrow part on a handful of close values); a lower bound on the
+# ratio of the variances restores a proper maximum (Hathaway, Annals of Statistics 13(2),
+# 1985). In our trials on 60 pure lognormal samples (n = 500) the bound 0.2 cut the runs
+# where the mixture won on AIC from 15 to 10, near what AIC's 3 extra parameters allow by
+# chance (a likelihood-ratio statistic above 6: about 11 % for chi-squared with 3 degrees
+# of freedom); a real cluster of equal-length stalls keeps its share and median, with its
+# width raised to a fifth of the body's (a slightly longer, cautious tail).
+SIGMA_RATIO_MIN = 0.2
 _LOG_TINY = -690.0  # ln of the smallest probability we let a bucket have (about 1e-300)
 
 SELECTION_NOTE = (
@@ -385,7 +396,9 @@ def _em_two_normals(
     Dempster, Laird and Rubin, J. Royal Statistical Society B 39(1), 1977. Returns the
     parameters (p of part 2, mu1, s1, mu2, s2) and the weighted log-likelihood of y.
     The sigmas are kept at or above ``sigma_floor`` so that a part cannot collapse onto
-    one repeated value (which would make the likelihood unbounded).
+    one repeated value, and the smaller at or above SIGMA_RATIO_MIN times the larger (the
+    constraint of Hathaway 1985, applied here by raising the smaller after each M-step, so
+    the result is close to, not exactly, the constrained maximum).
     """
     p, m1, s1, m2, s2 = init
     half_log_2pi = 0.5 * math.log(2.0 * math.pi)
@@ -408,6 +421,7 @@ def _em_two_normals(
         m2 = float(np.sum(r2 * y) / n2)
         s1 = max(math.sqrt(float(np.sum(r1 * (y - m1) ** 2)) / n1), sigma_floor)
         s2 = max(math.sqrt(float(np.sum(r2 * (y - m2) ** 2)) / n2), sigma_floor)
+        s1, s2 = max(s1, SIGMA_RATIO_MIN * s2), max(s2, SIGMA_RATIO_MIN * s1)
         p = min(max(p, 1e-12), 1.0 - 1e-12)
         if ll - prev <= rel_tol * abs(ll):
             break
@@ -428,6 +442,7 @@ def _em_starts(y_sorted: np.ndarray, w_sorted: np.ndarray, sigma_floor: float):
         m1, m2 = _weighted_mean(lo_y, lo_w), _weighted_mean(hi_y, hi_w)
         s1 = max(math.sqrt(_weighted_mean((lo_y - m1) ** 2, lo_w)), sigma_floor)
         s2 = max(math.sqrt(_weighted_mean((hi_y - m2) ** 2, hi_w)), sigma_floor)
+        s1, s2 = max(s1, SIGMA_RATIO_MIN * s2), max(s2, SIGMA_RATIO_MIN * s1)
         yield (float(hi_w.sum() / total), m1, s1, m2, s2)
 
 
@@ -458,6 +473,22 @@ def _fit_mixture_em(
         if usable(theta):
             return theta, ll
     return None
+
+
+def _selection_notes(fits: list[FamilyFit]) -> list[str]:
+    """A note when the runner-up is within 2 of the lowest AIC.
+
+    Rule of thumb of Burnham and Anderson, Model Selection and Multimodel Inference, 2nd ed.
+    2002 (from memory): models within 2 of the best have substantial support.
+    """
+    ranked = sorted(fits, key=lambda f: f.aic)
+    if len(ranked) < 2 or ranked[1].aic - ranked[0].aic >= 2.0:
+        return []
+    return [
+        f"{ranked[1].family} is within {ranked[1].aic - ranked[0].aic:.1f} of "
+        f"{ranked[0].family} on AIC: the data do not clearly prefer one (a difference "
+        "below 2 is weak evidence)"
+    ]
 
 
 def _mixture_notes(theta: tuple[float, ...] | None) -> list[str]:
@@ -554,6 +585,7 @@ def fit_samples(samples_ms: np.ndarray) -> FitReport:
         fits.append(_make_fit(family, theta, log_lik, _ks_samples(xs, cdf)))
 
     notes.extend(_mixture_notes(thetas.get("mixture")))
+    notes.extend(_selection_notes(fits))
     q = np.quantile(xs, _QUANTILES)
     best = min(fits, key=lambda f: f.aic)
     if n < 1000:
@@ -665,7 +697,10 @@ def _to_free(family: str, theta: tuple[float, ...]) -> np.ndarray:
     if family in ("gamma", "weibull"):
         return np.log(np.asarray(theta))
     p, mu1, s1, mu2, s2 = theta
-    return np.array([math.log(p / (1 - p)), mu1, math.log(s1), mu2, math.log(s2)])
+    # s2 = s1 * exp(L * tanh(t)) with L = -ln SIGMA_RATIO_MIN keeps the ratio in bounds.
+    bound = -math.log(SIGMA_RATIO_MIN)
+    t = math.atanh(min(max(math.log(s2 / s1) / bound, -1 + 1e-9), 1 - 1e-9))
+    return np.array([math.log(p / (1 - p)), mu1, math.log(s1), mu2, t])
 
 
 def _from_free(family: str, v: np.ndarray) -> tuple[float, ...]:
@@ -675,7 +710,9 @@ def _from_free(family: str, v: np.ndarray) -> tuple[float, ...]:
     if family in ("gamma", "weibull"):
         return (math.exp(v[0]), math.exp(v[1]))
     p = 1.0 / (1.0 + math.exp(-v[0]))
-    return (p, float(v[1]), math.exp(v[2]), float(v[3]), math.exp(v[4]))
+    s1 = math.exp(v[2])
+    s2 = s1 * math.exp(-math.log(SIGMA_RATIO_MIN) * math.tanh(v[4]))
+    return (p, float(v[1]), s1, float(v[3]), s2)
 
 
 def _maximise_interval(
@@ -836,6 +873,12 @@ def fit_cumulative_histogram(upper_bounds_ms, cumulative_counts) -> FitReport:
             ks = float(np.max(np.abs(emp - cdf)))
         fits.append(_make_fit(family, theta, ll, ks))
 
+    notes.extend(_selection_notes(fits))
+    if counts[-1] > 0 and not math.isfinite(b[-1]):
+        notes.append(
+            f"{counts[-1] / total:.2%} of the observations lie above the last finite bound "
+            f"({b[-2]:.4g} ms): beyond it the fits' tails are extrapolated, not measured"
+        )
     data_q = [_histogram_quantile(lower, b, cum, q) for q in _QUANTILES]
     for q, v in zip(_QUANTILES, data_q, strict=True):
         if v is None:

@@ -210,6 +210,7 @@ def test_histogram_open_last_bucket_gives_unknown_figures():
     assert report.data_p999_ms is None  # rank 39.96 lies above 4 ms
     assert report.data_mean_ms is None
     assert any("open last bucket" in note for note in report.notes)
+    assert any("2.50% of the observations" in n and "extrapolated" in n for n in report.notes)
 
 
 def test_histogram_zero_bound_with_no_counts_is_dropped():
@@ -381,3 +382,30 @@ def test_declared_unit_comment(tmp_path):
     path.write_text("# unit: minutes\n1\n")
     with pytest.raises(ValueError, match=r"flushes\.csv line 1: declared unit 'minutes'"):
         declared_unit(path)
+
+
+@pytest.mark.parametrize("seed", [3, 40, 44])
+def test_mixture_sigmas_respect_the_ratio_bound(seed):
+    # Seeds where, without the bound, a narrow spurious part won on AIC.
+    from commitadvisor.fitting import SIGMA_RATIO_MIN
+
+    x = np.random.default_rng(seed).lognormal(0.0, 0.5, 500)
+    report = fit_samples(x)
+    body, slow = report.fit("mixture").parts
+    ratio = min(body.sigma, slow.sigma) / max(body.sigma, slow.sigma)
+    assert ratio >= SIGMA_RATIO_MIN * (1 - 1e-12)
+    bounds = np.r_[0.05 * 2 ** (np.arange(20) / 2), np.inf]
+    hist = fit_cumulative_histogram(bounds, np.searchsorted(np.sort(x), bounds, side="right"))
+    body, slow = hist.fit("mixture").parts
+    assert min(body.sigma, slow.sigma) / max(body.sigma, slow.sigma) >= SIGMA_RATIO_MIN * (1 - 1e-9)
+
+
+def test_close_aic_gives_a_note():
+    from commitadvisor.fitting import _selection_notes
+
+    a = dataclasses.replace(_fit("lognormal", []), aic=100.0)
+    b = dataclasses.replace(_fit("gamma", []), aic=101.5)
+    c = dataclasses.replace(_fit("weibull", []), aic=130.0)
+    notes = _selection_notes([c, b, a])
+    assert len(notes) == 1 and notes[0].startswith("gamma is within 1.5 of lognormal")
+    assert _selection_notes([a, c]) == []
