@@ -172,3 +172,22 @@ def test_help_explains_options_and_units():
     for word in ("--block-bytes", "--count", "--duration", "--flush-call", "--append", "--out"):
         assert word in measure_help.stdout
     assert "seconds" in measure_help.stdout and "µs" in measure_help.stdout
+
+
+def test_measure_interrupted_exits_130_and_cleans_up(tmp_path, monkeypatch):
+    from commitadvisor import measure as measure_module
+
+    real = measure_module.measure_flush_latency
+
+    def interrupted(directory, **kwargs):
+        def stop(done, total):
+            if done == 3:
+                raise KeyboardInterrupt
+
+        return real(directory, **{**kwargs, "progress": stop})
+
+    monkeypatch.setattr(measure_module, "measure_flush_latency", interrupted)
+    result = runner.invoke(app, ["measure", str(tmp_path), "--count", "10"])
+    assert result.exit_code == 130
+    assert "interrupted; the scratch file was removed" in result.stderr
+    assert os.listdir(tmp_path) == []
