@@ -129,7 +129,7 @@ def evaluation(*strategies: StrategyResult) -> Evaluation:
 def default_evaluation() -> Evaluation:
     """Four strategies whose verdicts under the baseline a reader can tell by eye."""
     sync = strategy("s_sync", "synchronous", regime("normal", 3.0), regime("burst", 40.0))
-    dfr_exp = (window("process_crash", 99.9), window("host_crash", 150.0),
+    dfr_exp = (window("process_crash", 99.9, per_year=4.0), window("host_crash", 150.0),
                unbounded("device_loss"))
     dfr = strategy("s_def", "deferred", regime("normal", 0.5, dfr_exp, copies=0),
                    regime("burst", 0.5, dfr_exp, copies=0))
