@@ -1,12 +1,14 @@
 """Batched commit: the writer holds each flush to gather commits, for at most the gathering
 window after the first pending commit or until the target number is pending.
 
-Model (open arrivals, a renewal approximation checked against the simulator): a cycle is an
-idle wait (only when nothing is pending when a flush ends), a gathering G = min(window,
-time for target - 1 more arrivals ~ Gamma(target - 1, lambda)), and a flush S carrying
-lambda E[cycle] commits. By PASTA a commit arriving while idle is the first and waits G + S;
-one arriving during a gathering waits the rest of it (its equilibrium residual) and S; one
-arriving during a flush waits the rest of the flush, a new gathering and a flush.
+Model (open arrivals, a renewal approximation checked against the simulator): the window
+runs from the moment the first pending commit joined the writer, even when that was during
+the previous flush. A flush that saw no arrival (chance p0 = E[exp(-lambda S)]) is followed
+by an idle wait and a full gathering G = min(window, Gamma(target - 1, lambda)); otherwise
+the next flush waits only what is left of the oldest pending commit's window, or nothing
+when the target is already reached (G'). By PASTA a commit arriving while idle waits G + S;
+one arriving during a gathering waits its equilibrium residual and S; one arriving during a
+flush waits the rest of the flush, G' and S.
 """
 
 from __future__ import annotations
@@ -72,12 +74,14 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         return saturated_result(ctx.regime, ctx.time_share, saturation(
             f"bandwidth:{dev.name}", bw_cap, lam, duration, f"the bandwidth of {dev.name}"), 1)
     k = s.gather_target_commits
-    gather = Capped(L.Gamma(k - 1, 1.0 / lam), s.gather_window_ms)
+    window = s.gather_window_ms
+    gather = Capped(L.Gamma(k - 1, 1.0 / lam), window)
     batch = 1.0 + lam * gather.mean_ms
     for _ in range(6):
         flush = dev.flush(batch, ctx.log_bytes)
-        idle = (1.0 / lam) * flush.laplace(lam)
-        cycle = idle + gather.mean_ms + flush.mean_ms
+        p0 = flush.laplace(lam)
+        after = _gather_after_flush(flush.mean_ms, lam, k, window)
+        cycle = p0 * (1.0 / lam + gather.mean_ms) + (1 - p0) * after.mean_ms + flush.mean_ms
         batch = lam * cycle
     cpu = ctx.cpu_wait(lam)
     cpu_cap = ctx.cpu_ceiling_per_ms(batch, dev.overhead_ms)
@@ -85,11 +89,13 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         cap = cpu_cap if cpu_cap is not None else ctx.cpus / ctx.cpu_ms_per_commit
         return saturated_result(ctx.regime, ctx.time_share, saturation(
             "cpu", cap, lam, duration, "the host's CPU"), 1)
-    shares = np.array([idle, gather.mean_ms, flush.mean_ms]) / cycle
-    first = L.convolve(gather, flush)
-    during_gather = L.convolve(L.residual(gather), flush)
-    during_flush = L.convolve(L.residual(flush), gather, flush)
-    resp = L.mixture(shares, [first, during_gather, during_flush])
+    shares = np.array([p0 / lam, p0 * gather.mean_ms, (1 - p0) * after.mean_ms,
+                       flush.mean_ms]) / cycle
+    parts = [L.convolve(gather, flush), L.convolve(L.residual(gather), flush),
+             L.convolve(L.residual(after), flush) if after.mean_ms > 0 else flush,
+             L.convolve(L.residual(flush), _gather_after_flush(
+                 flush.second_moment_ms2 / flush.mean_ms, lam, k, window), flush)]
+    resp = L.mixture(shares, parts)
     resp, stalled = stall_mixture(resp, dev, lam, ctx.log_bytes)
     if stalled:
         notes.append(f"{dev.name} is stalled {stalled:.1%} of the time; folded in as a "
@@ -101,6 +107,19 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         writer_busy=flush.mean_ms / cycle,
         cpu_busy=(lam * ctx.cpu_ms_per_commit / ctx.cpus) if ctx.cpus else None,
         copies_at_ack=1 if dev.device.counts_as_durable else 0, notes=tuple(notes)))
+
+
+def _gather_after_flush(seen: float, lam: float, k: int, window: float) -> L.Latency:
+    """What is left of the gathering when a flush ends with commits pending. The oldest
+    pending commit joined about one interarrival after the flush began, or half-way through
+    it when arrivals are sparse; lambda x ``seen`` are already pending. Per flush, ``seen``
+    is E[S]; as a commit arriving during a flush sees it, the length-biased E[S^2]/E[S]."""
+    age = max(0.0, seen - min(1.0 / lam, seen / 2))
+    pending = max(1.0, lam * seen)
+    left = window - age
+    if pending >= k or left <= 0:
+        return L.Fixed(0.0)
+    return Capped(L.Gamma(max(k - pending, 0.05), 1.0 / lam), left)
 
 
 def _closed_rate_guess(ctx: RegimeContext, s, dev) -> float:

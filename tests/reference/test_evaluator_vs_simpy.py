@@ -1,0 +1,117 @@
+"""The analytic evaluator against the independent simpy reference models.
+
+The reference models (tests/reference/simpy_models.py) share no code with commitadvisor.
+Tolerances: the evaluator's own targets are 3 % on the mean and 5 % on p99 (issue 4); the
+reference run adds its sampling noise, which we measured across seeds at 100-150 k commits as
+about 1 % on the mean and 2-3 % on p99 for these light-tailed profiles, so the checks allow
+4 % and 7 %. Heavy-tailed percentiles beyond p99 are too noisy at these sizes to assert.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from commitadvisor.evaluate import evaluate
+from tests.reference import simpy_models as R
+from tests.reference.evaluator_cases import make_case
+
+MEAN_TOL, P99_TOL = 0.04, 0.07
+
+
+def flush_fn(sampler, log_bytes=100, block=8192, bytes_per_ms=1e6):
+    """The evaluator's flush law: device time plus the transfer beyond the profiled block."""
+    return lambda rng, b: sampler(rng) + max(0.0, b * log_bytes - block) / bytes_per_ms
+
+
+def close(ours, theirs, tol):
+    assert ours == pytest.approx(theirs, rel=tol), f"evaluator {ours:.4g} vs reference {theirs:.4g}"
+
+
+def lognormal_device(p50, p99):
+    return {"latency": {"normal": {"kind": "lognormal", "p50_ms": p50, "p99_ms": p99}}}
+
+
+@pytest.mark.parametrize("rate", [100, 800, 3000])
+def test_synchronous_open_group_commit(rate):
+    r = evaluate(make_case(workload={"commit_rate_per_s": float(rate)})).strategies[0].regimes[0]
+    sim = R.run_open(rate, flush_fn(R.lognormal_sampler(1.0, 10.0)), mode="group", seed=11,
+                     commits=120_000).response_ms
+    close(r.ack_mean_ms, sim.mean(), MEAN_TOL)
+    close(r.ack_p99_ms, np.quantile(sim, 0.99), P99_TOL)
+
+
+def test_synchronous_with_time_based_stalls():
+    dev = {**lognormal_device(0.6, 3.0), "stalls": {"normal": {
+        "per_s": 0.5, "duration": {"kind": "lognormal", "p50_ms": 100.0, "p99_ms": 300.0}}}}
+    r = evaluate(make_case(workload={"commit_rate_per_s": 1200.0}, device_a=dev)
+                 ).strategies[0].regimes[0]
+    sim = R.run_open(1200, flush_fn(R.lognormal_sampler(0.6, 3.0)), mode="group", seed=2,
+                     commits=240_000, stalls=(0.5, R.lognormal_sampler(100.0, 300.0))).response_ms
+    # about 120 stalls in the run: their count's noise (~9 %) dominates, so 10 % here
+    close(r.ack_mean_ms, sim.mean(), 0.10)
+    close(r.ack_p99_ms, np.quantile(sim, 0.99), 0.10)
+
+
+@pytest.mark.parametrize("rate, window, target, p50, p99", [
+    (1200, 1.0, 8, 0.6, 3.0), (5000, 2.0, 8, 0.6, 3.0), (300, 1.0, 8, 0.6, 3.0),
+])
+def test_batched_commit(rate, window, target, p50, p99):
+    case = make_case(workload={"commit_rate_per_s": float(rate)}, device_a=lognormal_device(p50, p99),
+                     strategies=[{"kind": "batched", "device": "a", "gather_window_ms": window,
+                                  "gather_target_commits": target}])
+    r = evaluate(case).strategies[0].regimes[0]
+    sim = R.run_open(rate, flush_fn(R.lognormal_sampler(p50, p99)), mode="batched", seed=3,
+                     commits=120_000, gather_window_ms=window, gather_target=target)
+    close(r.ack_mean_ms, sim.response_ms.mean(), MEAN_TOL)
+    close(r.ack_p99_ms, np.quantile(sim.response_ms, 0.99), P99_TOL)
+    close(r.mean_batch_commits, np.mean(sim.batch_sizes), 0.05)
+
+
+def test_closed_sessions_chain():
+    case = make_case(workload={"kind": "closed", "sessions": 20, "think_time_ms": 10.0,
+                               "log_bytes_per_commit": 100})
+    r = evaluate(case).strategies[0].regimes[0]
+    sim = R.run_closed(20, 10.0, flush_fn(R.lognormal_sampler(1.0, 10.0)), seed=4,
+                       commits=120_000)
+    close(r.throughput_per_s, sim.throughput_per_s, 0.02)
+    close(r.ack_mean_ms, sim.response_ms.mean(), MEAN_TOL)
+    close(r.ack_p99_ms, np.quantile(sim.response_ms, 0.99), P99_TOL)
+
+
+def test_dual_device_first_of_two_and_second_copy_lag():
+    case = make_case(strategies=[{"kind": "dual_device", "devices": ["a", "b"],
+                                  "ack_after": "first", "shared_cause_share": 0.0}])
+    r = evaluate(case).strategies[0].regimes[0]
+    sim = R.run_dual(1000, flush_fn(R.lognormal_sampler(1.0, 10.0)),
+                     flush_fn(R.lognormal_sampler(0.3, 2.0)), seed=5, commits=120_000)
+    close(r.ack_mean_ms, sim.response_ms.mean(), MEAN_TOL)
+    close(r.ack_p99_ms, np.quantile(sim.response_ms, 0.99), P99_TOL)
+    lag = r.exposure("device_loss")
+    close(lag.window_mean_ms, sim.lag_ms.mean(), 0.05)
+    close(lag.window_p99_ms, np.quantile(sim.lag_ms, 0.99), 0.08)
+
+
+def test_deferred_exposure_and_littles_law():
+    case = make_case(workload={"commit_rate_per_s": 2000.0}, device_a=lognormal_device(1.0, 4.0),
+                     strategies=[{"kind": "deferred", "device": "a", "flush_every_ms": 20.0,
+                                  "buffer_bytes": 1_000_000}])
+    r = evaluate(case).strategies[0].regimes[0]
+    sim = R.run_deferred(2000, flush_fn(R.lognormal_sampler(1.0, 4.0)), flush_every_ms=20.0,
+                         buffer_bytes=1_000_000, log_bytes_per_commit=100, seed=7, duration_s=40)
+    e = r.exposure("host_crash")
+    close(e.window_mean_ms, sim.exposure_ms.mean(), 0.03)
+    close(e.window_p99_ms, np.quantile(sim.exposure_ms, 0.99), 0.05)
+    # Little's law (Little, Operations Research 1961): the reference measures the time
+    # average of acknowledged-not-durable commits directly, not through the formula
+    close(e.at_risk_mean, sim.at_risk_time_avg, 0.03)
+    assert r.ack_p99_ms < 0.01 * e.window_p99_ms  # acknowledged long before durable
+
+
+def test_cpu_station_erlang_c():
+    case = make_case(workload={"commit_rate_per_s": 3000.0, "cpus": 2, "cpu_ms_per_commit": 0.5})
+    r = evaluate(case).strategies[0].regimes[0]
+    sim = R.run_open(3000, flush_fn(R.lognormal_sampler(1.0, 10.0)), mode="group", seed=7,
+                     commits=120_000, cpu_servers=2, cpu_ms_per_commit=R.exp_sampler(0.5))
+    close(r.ack_mean_ms, sim.response_ms.mean(), MEAN_TOL)
+    close(r.ack_p99_ms, np.quantile(sim.response_ms, 0.99), P99_TOL)
