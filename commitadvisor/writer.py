@@ -107,11 +107,18 @@ class ClosedGroupCommit:
     writer_busy: float
 
 
-def _quadrature(flush: L.Latency) -> tuple[np.ndarray, np.ndarray]:
+def _quadrature(flush: L.Latency, cache: dict | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Nodes (ms) and weights for E[g(S)], dense in the upper tail where rare slow flushes
-    live (midpoint rule in probability on [0, .99], [.99, .9999], [.9999, 1 - 1e-8])."""
+    live (midpoint rule in probability on [0, .99], [.99, .9999], [.9999, 1 - 1e-8]).
+    A shifted profile reuses its base's nodes (``cache`` keyed by the base object)."""
+    if isinstance(flush, L.Shifted) and cache is not None:
+        key = id(flush.base)
+        if key not in cache:
+            cache[key] = (flush.base, _quadrature(flush.base))
+        s, w = cache[key][1]
+        return s + flush.shift_ms, w
     us, ws = [], []
-    for lo, hi, n in ((0.0, 0.99, 300), (0.99, 0.9999, 150), (0.9999, 1 - 1e-8, 150)):
+    for lo, hi, n in ((0.0, 0.99, 160), (0.99, 0.9999, 80), (0.9999, 1 - 1e-8, 80)):
         edges = np.linspace(lo, hi, n + 1)
         us.append((edges[:-1] + edges[1:]) / 2)
         ws.append(np.diff(edges))
@@ -129,8 +136,6 @@ def closed_group_commit(flush_for_batch, sessions: int, think_ms: float) -> Clos
     batch of one. Throughput X = E[commits per cycle] / E[cycle]; R = N/X - Z (Little).
     ``flush_for_batch(b)`` gives the flush-time distribution for a batch of b commits.
     """
-    from scipy.stats import binom
-
     n = sessions
     if think_ms <= 0:
         # every session is always waiting: each flush carries all N commits
@@ -140,12 +145,13 @@ def closed_group_commit(flush_for_batch, sessions: int, think_ms: float) -> Clos
     trans = np.zeros((n + 1, n + 1))
     cycle = np.zeros(n + 1)
     nodes_by_b = {}
+    cache: dict = {}
     for b in range(1, n + 1):
-        s, w = _quadrature(flush_for_batch(b))
+        s, w = _quadrature(flush_for_batch(b), cache)
         nodes_by_b[b] = (s, w)
         pi = -np.expm1(-s / think_ms)
         k = np.arange(n - b + 1)
-        pmf = binom.pmf(k[None, :], n - b, pi[:, None])
+        pmf = _binomial_pmf(k, n - b, pi)
         trans[b, : n - b + 1] = w @ pmf
         cycle[b] = float(w @ s)
     trans[0] = trans[1]
@@ -187,6 +193,16 @@ def closed_group_commit(flush_for_batch, sessions: int, think_ms: float) -> Clos
     return ClosedGroupCommit(x, response, mean_r, mean_batch, float(1 / (pi_b @ cycle)), busy)
 
 
+def _binomial_pmf(k: np.ndarray, n: int, p: np.ndarray) -> np.ndarray:
+    """Binomial(n, p) probabilities of k, one row per p (log-gamma form, stable at p = 0, 1)."""
+    from scipy.special import gammaln, xlog1py, xlogy
+
+    kk = k[None, :].astype(float)
+    pp = p[:, None]
+    logc = gammaln(n + 1.0) - gammaln(kk + 1.0) - gammaln(n - kk + 1.0)
+    return np.exp(logc + xlogy(kk, pp) + xlog1py(n - kk, -pp))
+
+
 def _time_left(s: np.ndarray, w: np.ndarray, think_ms: float) -> L.GridLatency:
     """Time left of the flush in progress when a thinking session commits during it.
 
@@ -202,7 +218,7 @@ def _time_left(s: np.ndarray, w: np.ndarray, think_ms: float) -> L.GridLatency:
     ss = np.add.reduceat(w * s, starts) / np.maximum(ws, 1e-300)
     keep = ws > 0
     ss, ws = ss[keep], ws[keep]
-    x = np.concatenate([[0.0], np.geomspace(max(ss[0], 1e-6) * 1e-4, ss[-1], 3000)])
+    x = np.concatenate([[0.0], np.geomspace(max(ss[0], 1e-6) * 1e-4, ss[-1], 1500)])
     z = think_ms
     c = np.empty_like(x)
     for i in range(0, len(x), 500):

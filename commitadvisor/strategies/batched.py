@@ -22,6 +22,7 @@ from commitadvisor import latency as L
 from commitadvisor.case import Case
 from commitadvisor.results import RegimeResult
 from commitadvisor.strategies.common import Partial, assemble, saturated_result, saturation
+from commitadvisor.strategies.closed import CLOSED_NOTE, solve_closed_rate
 from commitadvisor.strategies.context import RegimeContext, stall_mixture
 from commitadvisor.strategies.synchronous import device_exposures
 
@@ -66,23 +67,15 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
     lam = ctx.open_rate_per_ms
     notes = []
     if lam is None:
-        lam = _closed_rate_guess(ctx, s, dev)
-        notes.append("closed sessions: batched commit evaluated with open arrivals at the "
-                     "sessions' rate (approximation; check it with the simulator)")
+        lam = _closed_rate(ctx, s, dev)
+        notes.append(CLOSED_NOTE)
     bw_cap = dev.bandwidth_bytes_per_ms / ctx.log_bytes
     if lam >= bw_cap:
         return saturated_result(ctx.regime, ctx.time_share, saturation(
             f"bandwidth:{dev.name}", bw_cap, lam, duration, f"the bandwidth of {dev.name}"), 1)
     k = s.gather_target_commits
     window = s.gather_window_ms
-    gather = Capped(L.Gamma(k - 1, 1.0 / lam), window)
-    batch = 1.0 + lam * gather.mean_ms
-    for _ in range(6):
-        flush = dev.flush(batch, ctx.log_bytes)
-        p0 = flush.laplace(lam)
-        after = _gather_after_flush(flush.mean_ms, lam, k, window)
-        cycle = p0 * (1.0 / lam + gather.mean_ms) + (1 - p0) * after.mean_ms + flush.mean_ms
-        batch = lam * cycle
+    gather, flush, p0, after, cycle, batch = _cycle(dev, ctx, lam, k, window)
     cpu = ctx.cpu_wait(lam)
     cpu_cap = ctx.cpu_ceiling_per_ms(batch, dev.overhead_ms)
     if cpu is None or (cpu_cap is not None and lam >= cpu_cap):
@@ -122,8 +115,43 @@ def _gather_after_flush(seen: float, lam: float, k: int, window: float) -> L.Lat
     return Capped(L.Gamma(max(k - pending, 0.05), 1.0 / lam), left)
 
 
-def _closed_rate_guess(ctx: RegimeContext, s, dev) -> float:
-    """Throughput of N sessions when each commit waits about half a window plus a flush:
-    X = N / (Z + CPU + window/2 + E[S]) (interactive response time law)."""
-    r = s.gather_window_ms / 2 + dev.flush(s.gather_target_commits, ctx.log_bytes).mean_ms
-    return ctx.sessions / (ctx.think_ms + ctx.cpu_ms_per_commit + r)
+def _cycle(dev, ctx: RegimeContext, lam: float, k: int, window: float):
+    """Gathering, flush and cycle at rate lam (fixed point on the batch's transfer time)."""
+    gather = Capped(L.Gamma(k - 1, 1.0 / lam), window)
+    batch = 1.0 + lam * gather.mean_ms
+    for _ in range(6):
+        flush = dev.flush(batch, ctx.log_bytes)
+        p0 = flush.laplace(lam)
+        after = _gather_after_flush(flush.mean_ms, lam, k, window)
+        cycle = p0 * (1.0 / lam + gather.mean_ms) + (1 - p0) * after.mean_ms + flush.mean_ms
+        batch = lam * cycle
+    return gather, flush, p0, after, cycle, batch
+
+
+def _mean_wait(dev, ctx: RegimeContext, lam: float, k: int, window: float) -> float:
+    """Mean of the batched response law at rate lam, from means and second moments only."""
+    gather, flush, p0, after, cycle, _ = _cycle(dev, ctx, lam, k, window)
+    seen = _gather_after_flush(flush.second_moment_ms2 / flush.mean_ms, lam, k, window)
+
+    def resid(d: L.Latency) -> float:
+        return d.second_moment_ms2 / (2 * d.mean_ms) if d.mean_ms > 0 else 0.0
+
+    shares = np.array([p0 / lam, p0 * gather.mean_ms, (1 - p0) * after.mean_ms,
+                       flush.mean_ms]) / cycle
+    means = np.array([gather.mean_ms, resid(gather), resid(after), resid(flush) + seen.mean_ms])
+    return float(shares @ means) + flush.mean_ms
+
+
+def _closed_rate(ctx: RegimeContext, s, dev) -> float:
+    """Rate of N sessions under batched commit (see commitadvisor.strategies.closed)."""
+
+    def mean_response(x: float) -> float:
+        cpu = ctx.cpu_wait(x)
+        if cpu is None:
+            return float("inf")
+        return cpu.mean_ms + _mean_wait(dev, ctx, x, s.gather_target_commits, s.gather_window_ms)
+
+    cap = ctx.cpu_ceiling_per_ms(s.gather_target_commits, dev.overhead_ms)
+    bw = dev.bandwidth_bytes_per_ms / ctx.log_bytes
+    return solve_closed_rate(ctx.sessions, ctx.think_ms, mean_response,
+                             min(cap, bw) if cap is not None else bw)

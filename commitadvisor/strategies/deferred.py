@@ -22,6 +22,7 @@ from commitadvisor.results import RegimeResult
 from commitadvisor.strategies.common import (
     Partial, assemble, from_window, saturated_result, saturation, unbounded,
 )
+from commitadvisor.strategies.closed import CLOSED_NOTE, solve_closed_rate
 from commitadvisor.strategies.context import RegimeContext
 
 __all__ = ["evaluate_regime"]
@@ -31,8 +32,10 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
     dev = ctx.devices[s.device]
     reg = case.regime(ctx.regime)
     duration = reg.duration_s if reg else None
+    notes = []
     if ctx.open_rate_per_ms is None:
         lam = _closed_rate(ctx)
+        notes.append(CLOSED_NOTE)
     else:
         lam = ctx.open_rate_per_ms
     bw_cap = dev.bandwidth_bytes_per_ms / ctx.log_bytes
@@ -43,7 +46,6 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
     interval = s.flush_every_ms
     flush = dev.flush(lam * interval, ctx.log_bytes)
     cycle = max(interval, flush.mean_ms)
-    notes = []
     if flush.mean_ms > interval:
         notes.append(f"a flush ({flush.mean_ms:.3g} ms) outlasts the interval ({interval:g} ms): "
                      "flushes run back to back and each carries more")
@@ -96,18 +98,11 @@ _U = np.linspace(0.0005, 0.9995, 1000)
 
 def _closed_rate(ctx: RegimeContext) -> float:
     """Closed sessions acknowledged from the buffer cycle through think time and the CPU
-    only: X = N / (Z + CPU time), bounded by the CPU ceiling (interactive response time law;
-    Lazowska et al. 1984)."""
-    n, z = ctx.sessions, ctx.think_ms
-    x = n / (z + ctx.cpu_ms_per_commit) if (z + ctx.cpu_ms_per_commit) > 0 else 1e9
-    for _ in range(20):
-        w = ctx.cpu_wait(min(x, _cap(ctx) * 0.999))
-        x_new = n / (z + (w.mean_ms if w is not None else ctx.cpu_ms_per_commit))
-        x = min(x_new, _cap(ctx) * 0.999)
-    return x
+    station only (see commitadvisor.strategies.closed)."""
 
+    def cpu_mean(x: float) -> float:
+        w = ctx.cpu_wait(x)
+        return float("inf") if w is None else w.mean_ms
 
-def _cap(ctx: RegimeContext) -> float:
-    if ctx.cpus and ctx.cpu_ms_per_commit > 0:
-        return ctx.cpus / ctx.cpu_ms_per_commit
-    return float("inf")
+    cap = ctx.cpus / ctx.cpu_ms_per_commit if ctx.cpus and ctx.cpu_ms_per_commit > 0 else None
+    return solve_closed_rate(ctx.sessions, ctx.think_ms, cpu_mean, cap)

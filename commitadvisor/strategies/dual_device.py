@@ -28,16 +28,16 @@ __all__ = ["evaluate_regime", "lag_distribution"]
 def lag_distribution(a: L.Latency, b: L.Latency) -> L.GridLatency:
     """|T_a - T_b| for independent T_a, T_b: P(|D| <= x) = P(Ta - Tb <= x) - P(Ta - Tb < -x),
     integrated over T_b's quantiles (midpoint rule in probability)."""
-    u = np.concatenate([np.linspace(0.0005, 0.9895, 990), 0.99 + np.linspace(0.00005, 0.00995,
-                                                                              200),
-                        0.9999 + np.linspace(5e-7, 9.95e-5, 200)])
-    w = np.concatenate([np.full(990, 0.99 / 990), np.full(200, 0.0099 / 200),
-                        np.full(200, 0.0000999 / 200)])
+    u = np.concatenate([(np.arange(400) + 0.5) / 400 * 0.99,
+                        0.99 + (np.arange(100) + 0.5) / 100 * 0.0099,
+                        0.9999 + (np.arange(100) + 0.5) / 100 * 0.0000999])
+    w = np.concatenate([np.full(400, 0.99 / 400), np.full(100, 0.0099 / 100),
+                        np.full(100, 0.0000999 / 100)])
     w = w / w.sum()
     yb = b.quantile(u)
     ya = a.quantile(u)
     hi = max(float(ya.max()), float(yb.max()))
-    x = np.concatenate([[0.0], np.geomspace(hi * 1e-6, hi, 1500)])
+    x = np.concatenate([[0.0], np.geomspace(hi * 1e-6, hi, 800)])
     c = np.empty_like(x)
     for i in range(0, len(x), 250):
         xi = x[i:i + 250, None]

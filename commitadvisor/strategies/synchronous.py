@@ -96,7 +96,7 @@ def _closed(case: Case, s, ctx: RegimeContext, dev: DeviceInRegime) -> RegimeRes
     x = None
     z_eff = z + cpu_ms
     cpu = L.Fixed(0.0)
-    for _ in range(4):  # the CPU station's wait lengthens the time between commits
+    for _ in range(3):  # the CPU station's wait lengthens the time between commits
         if s.grouping == "none":
             res = _one_per_commit_closed(ctx, dev, n, z_eff)
         else:
@@ -109,6 +109,8 @@ def _closed(case: Case, s, ctx: RegimeContext, dev: DeviceInRegime) -> RegimeRes
             x = 0.98 * cap
         w = ctx.cpu_wait(x)
         cpu = w if w is not None else L.Fixed(0.0)
+        if abs(z + cpu.mean_ms - z_eff) < 1e-3 * max(z_eff, 1e-9):
+            break
         z_eff = z + cpu.mean_ms
     cap = ctx.cpu_ceiling_per_ms(res.mean_batch, dev.overhead_ms)
     if cap is not None and res.throughput_per_ms > 0.97 * cap:
