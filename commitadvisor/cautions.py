@@ -60,6 +60,15 @@ def _count(x: float | None) -> str:
     return format_value(x, "commits")
 
 
+def _acked(x: float | None) -> str:
+    """A count of acknowledged commits in words: '1,349 acknowledged commits'."""
+    return format_value(x, "commits").replace(" commits", " acknowledged commits")
+
+
+def _times(n: float) -> str:
+    return f"{n:g} such failure{'' if n == 1 else 's'} a year"
+
+
 def _risk_key(e: Exposure) -> tuple[float, ...]:
     if e.unbounded:
         return (math.inf,)
@@ -92,13 +101,15 @@ def _crash_caution(case: Case, sr: StrategyResult, failure: str) -> Caution | No
         return None
     rr, e = found
     where = _regime_words(case, rr.regime)
+    if e.unbounded:
+        text = (f"{_IF[failure]} during {where}, acknowledged commits can be lost and the "
+                f"model cannot bound how many ({e.basis or 'no bound'}).")
+        return Caution("loss", failure, rr.regime, text, ())
     if e.at_risk_bound is not None and (e.at_risk_p999 is None
                                         or e.at_risk_bound <= e.at_risk_p999 + 1e-9):
-        most = f"up to {_count(e.at_risk_bound)} acknowledged commits can be lost (the log " \
-               "buffer's bound)"
+        most = f"up to {_acked(e.at_risk_bound)} can be lost (the log buffer's bound)"
     elif e.at_risk_p999 is not None:
-        most = (f"up to {_count(e.at_risk_p999)} acknowledged commits can be lost in 999 "
-                "of 1,000 such failures")
+        most = f"up to {_acked(e.at_risk_p999)} can be lost in 999 of 1,000 such failures"
         if e.at_risk_bound is not None:
             most += f", and never more than {_count(e.at_risk_bound)} (the log buffer's bound)"
     else:
@@ -117,7 +128,7 @@ def _crash_caution(case: Case, sr: StrategyResult, failure: str) -> Caution | No
     ]
     if y is not None and y.expected_lost_per_year is not None:
         text += (f". Expected loss per year: {_count(y.expected_lost_per_year)} "
-                 f"(at {per_year:g} such failures a year, over all regimes")
+                 f"(at {_times(per_year)}, over all regimes")
         if y.value_lost_per_year is not None:
             text += f"; {format_value(y.value_lost_per_year, 'value', case.recovery.currency)}"
         text += ")"

@@ -213,7 +213,7 @@ class Policy:
     """One rule file: its name, where it came from and its rules."""
 
     name: str
-    source: str  # the file as the user named it, or "baseline"
+    source: str  # the file as the user named it (rules/baseline.toml for the baseline)
     rules: tuple[Rule, ...]
     replaces_baseline: bool = False
     switch_off: tuple[str, ...] = ()
@@ -295,14 +295,17 @@ def format_value(value: float | bool | None, unit: str, currency: str | None = N
     if math.isinf(value):
         return "unbounded"
     if unit == "share":
+        if 0 < value < 1e-5:
+            return "under 0.001 %"
         return f"{_sig(value * 100)} %"
-    text = _sig(value)
+    if unit == "copies":
+        n = int(round(value))
+        return f"{n} cop{'y' if n == 1 else 'ies'}"
+    text = f"{value:,.0f}" if unit == "commits" and abs(value) >= 10 else _sig(value)
     suffix = {"ms": " ms", "commits": " commits", "copies": " copies", "per_s": "/s",
               "per_year": "/year", "s": " s", "us": " us"}.get(unit, "")
     if unit == "value":
         suffix = f" {currency}" if currency else ""
-    if unit == "copies" and value == 1:
-        suffix = " copy"
     return text + suffix
 
 
@@ -505,7 +508,7 @@ def _judge_rule(policy: Policy, rule: Rule, case: Case, sr: StrategyResult,
     currency = case.recovery.currency
     if metric.needs_stack and not case.stack:
         return RuleOutcome(rule.id, policy.name, policy.source, rule.severity, rule.metric,
-                           "not_applicable", "not applicable: the case has no stack", None, ())
+                           "not_applicable", "the case has no stack", None, ())
     if metric.scope == "year":
         places: list[tuple[str, RegimeResult]] = [("the whole year", sr.blended)]
     elif metric.scope == "strategy":
@@ -516,6 +519,7 @@ def _judge_rule(policy: Policy, rule: Rule, case: Case, sr: StrategyResult,
     failures: tuple[str | None, ...] = rule.failures if metric.per_failure else (None,)
     checks: list[Check] = []
     worst: tuple[float, Check] | None = None
+    worst_caution: tuple[float, Check] | None = None
     for regime_label, rr in places:
         for failure in failures:
             fig = _figure(metric, case, sr, rr, stack, failure)
@@ -552,11 +556,12 @@ def _judge_rule(policy: Policy, rule: Rule, case: Case, sr: StrategyResult,
                 status = "broken"
             check = Check(regime_label, failure, fig.value, threshold, status, message)
             checks.append(check)
-            if status == "broken":
-                badness = _badness(fig.value, rule.comparison, threshold)
-                if worst is None or badness > worst[0]:
-                    worst = (badness, check)
-    return _outcome(policy, rule, metric, checks, worst, currency)
+            badness = _badness(fig.value, rule.comparison, threshold)
+            if status == "broken" and (worst is None or badness > worst[0]):
+                worst = (badness, check)
+            if status == "caution" and (worst_caution is None or badness > worst_caution[0]):
+                worst_caution = (badness, check)
+    return _outcome(policy, rule, metric, checks, worst or worst_caution, currency)
 
 
 def _badness(value: float | bool, comparison: str, threshold: float | None) -> float:
@@ -574,6 +579,9 @@ def _badness(value: float | bool, comparison: str, threshold: float | None) -> f
 def _outcome(policy: Policy, rule: Rule, metric: Metric, checks: list[Check],
              worst: tuple[float, Check] | None, currency: str | None) -> RuleOutcome:
     base = (rule.id, policy.name, policy.source, rule.severity, rule.metric)
+    if worst is not None and worst[1].status == "caution":
+        check = worst[1]
+        return RuleOutcome(*base, "caution", check.message, check.regime, tuple(checks))
     if worst is not None:
         check = worst[1]
         others = sorted({c.regime for c in checks if c.status == "broken"} - {check.regime})
@@ -581,14 +589,10 @@ def _outcome(policy: Policy, rule: Rule, metric: Metric, checks: list[Check],
         if others:
             message += f" (also broken in: {', '.join(others)})"
         return RuleOutcome(*base, "broken", message, check.regime, tuple(checks))
-    cautions = [c for c in checks if c.status == "caution"]
-    if cautions:
-        return RuleOutcome(*base, "caution", cautions[0].message, cautions[0].regime,
-                           tuple(checks))
     met = [c for c in checks if c.status == "met"]
     if not met:
         why = checks[0].message if checks else "no regime to check"
-        return RuleOutcome(*base, "not_applicable", f"not judged: {why}", None, tuple(checks))
+        return RuleOutcome(*base, "not_applicable", why, None, tuple(checks))
     message = _met_message(rule, metric, met, currency)
     missing = [c for c in checks if c.status == "no_figure"]
     if missing:
@@ -599,11 +603,13 @@ def _outcome(policy: Policy, rule: Rule, metric: Metric, checks: list[Check],
 def _met_message(rule: Rule, metric: Metric, met: list[Check], currency: str | None) -> str:
     comparison = COMPARISONS[rule.comparison]
     if metric.is_bool:
-        return f"met: {metric.words} is {comparison} in every regime checked"
+        answer = "yes" if rule.comparison == "is_true" else "no"
+        where = "" if met[0].regime == "every regime" else " (in every regime checked)"
+        return f"{metric.words}: {answer}{where}"
     if rule.comparison in ("at_most", "below"):
         c = max(met, key=lambda c: float(c.value or 0.0))
     else:
         c = min(met, key=lambda c: float(c.value or 0.0))
     where = c.regime + (f", {c.failure}" if c.failure else "")
-    return (f"met: {metric.words} {format_value(c.value, metric.unit, currency)} at worst "
+    return (f"{metric.words} {format_value(c.value, metric.unit, currency)} at worst "
             f"({where}), {comparison} {format_value(c.threshold, metric.unit, currency)}")

@@ -165,12 +165,12 @@ class OptionRow:
     commit_p99_ms: tuple[tuple[str, float | None], ...]  # per regime
     top_tier_p99_ms: tuple[tuple[str, float | None], ...]  # per regime; () without a stack
     exposure_p999_ms: tuple[tuple[str, float | None], ...]  # per failure, worst regime; inf
-    lost_per_crash_mean: float | None  # host crash, worst regime
-    lost_per_crash_bound: float | None  # host crash, worst regime: hard bound or p99.9
-    lost_per_crash_bound_is_hard: bool
+    lost_per_crash_mean: float | None  # host crash, in the regime where it loses most
+    lost_per_crash_p999: float | None  # ... the p99.9 of the count at risk
+    lost_per_crash_hard_bound: float | None  # ... the log buffer's bound; None: no bound
     expected_lost_per_year: float | None  # process and host crash, over the year
     expected_value_lost_per_year: float | None
-    flushes_per_s: float
+    flushes_per_s: float | None  # over the year; None when a saturated regime has no figure
     saturated_in: tuple[str, ...]
     judgement: StrategyVerdict
     cautions: tuple[Caution, ...]
@@ -187,7 +187,7 @@ class Advice:
     title: str
     method: str
     regimes: tuple[tuple[str, float], ...]  # name, time share
-    policies: tuple[tuple[str, str], ...]  # name, source file ("baseline" for the baseline)
+    policies: tuple[tuple[str, str], ...]  # name, source file
     switched_off: tuple[tuple[str, str], ...]  # rule id, policy that switched it off
     objective: str
     summary: str
@@ -212,21 +212,21 @@ def _summary(rows: Sequence[OptionRow], policies: PolicySet) -> str:
     return ", ".join(parts) + " under " + " + ".join(policies.names)
 
 
-def _loss_figures(sr: StrategyResult) -> tuple[float | None, float | None, bool]:
-    best: tuple[float, float | None, float | None, bool] | None = None
+def _loss_figures(sr: StrategyResult) -> tuple[float | None, float | None, float | None]:
+    """Mean, p99.9 and hard bound of the commits a host crash loses, in the regime where
+    its p99.9 (then its mean) is largest."""
+    best: tuple[tuple[float, float], Any] | None = None
     for rr in sr.regimes:
         e = next((x for x in rr.exposures if x.failure == "host_crash"), None)
-        if e is None or e.unbounded:
+        if e is None or e.unbounded or e.at_risk_mean is None:
             continue
-        hard = e.at_risk_bound is not None and (e.at_risk_p999 is None
-                                                or e.at_risk_bound <= e.at_risk_p999 + 1e-9)
-        bound = e.at_risk_bound if hard else e.at_risk_p999
-        k = bound or 0.0
+        k = (e.at_risk_p999 or 0.0, e.at_risk_mean or 0.0)
         if best is None or k > best[0]:
-            best = (k, e.at_risk_mean, bound, hard)
+            best = (k, e)
     if best is None:
-        return None, None, False
-    return best[1], best[2], best[3]
+        return None, None, None
+    e = best[1]
+    return e.at_risk_mean, e.at_risk_p999, e.at_risk_bound
 
 
 def _yearly(sr: StrategyResult) -> tuple[float | None, float | None]:
@@ -268,7 +268,7 @@ def build_advice(case: Case, evaluation: Evaluation, policies: PolicySet,
     for r in ranked:
         sr = evaluation.strategy(r.name)
         st = by_name.get(r.name)
-        mean, bound, hard = _loss_figures(sr)
+        mean, p999, bound = _loss_figures(sr)
         lost, value = _yearly(sr)
         rows.append(OptionRow(
             rank=r.rank, name=sr.name, kind=sr.kind, settings=sr.settings,
@@ -276,10 +276,11 @@ def build_advice(case: Case, evaluation: Evaluation, policies: PolicySet,
             commit_p99_ms=tuple((rr.regime, rr.ack_p99_ms) for rr in sr.regimes),
             top_tier_p99_ms=tuple((x.regime, x.top_p99_ms) for x in st.regimes) if st else (),
             exposure_p999_ms=_per_failure_exposure(sr),
-            lost_per_crash_mean=mean, lost_per_crash_bound=bound,
-            lost_per_crash_bound_is_hard=hard,
+            lost_per_crash_mean=mean, lost_per_crash_p999=p999,
+            lost_per_crash_hard_bound=bound,
             expected_lost_per_year=lost, expected_value_lost_per_year=value,
-            flushes_per_s=sum(v for _, v in sr.blended.flushes_per_s),
+            flushes_per_s=sum(v for _, v in sr.blended.flushes_per_s)
+            if sr.blended.flushes_per_s or not sr.saturated else None,
             saturated_in=tuple(rr.regime for rr in sr.regimes if rr.saturated)
             + (tuple(x.regime for x in st.regimes if x.saturated and not
                      sr.regime(x.regime).saturated) if st else ()),

@@ -44,7 +44,7 @@ __all__ = [
 ]
 
 RULES_FORMAT_VERSION = 1
-BASELINE_SOURCE = "baseline"
+BASELINE_SOURCE = "rules/baseline.toml"
 STRATEGY_KINDS = ("synchronous", "batched", "deferred", "dual_device")
 
 

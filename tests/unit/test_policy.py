@@ -560,8 +560,10 @@ def test_every_metric_can_be_read_from_a_hand_made_result():
 
 def test_figures_are_rounded_with_units():
     assert format_value(0.12345, "ms") == "0.123 ms"
-    assert format_value(1234.5, "commits") == "1,234 commits" or \
-        format_value(1234.5, "commits") == "1,235 commits"
+    assert format_value(1234.4, "commits") == "1,234 commits"
+    assert format_value(1.357, "commits") == "1.36 commits"
+    assert format_value(1.0, "copies") == "1 copy" and format_value(0.0, "copies") == "0 copies"
+    assert format_value(1e-9, "share") == "under 0.001 %"
     assert format_value(math.inf, "ms") == "unbounded"
     assert format_value(0.634, "share") == "63.4 %"
     assert format_value(12.5, "value", "EUR") == "12.5 EUR"

@@ -118,9 +118,9 @@ def test_advice_on_the_hand_made_evaluation():
     # per year: 4 process crashes x 5 + 1 host crash x 5 commits on average (window())
     assert dfr.expected_lost_per_year == 25.0
     assert dfr.expected_value_lost_per_year == 250.0
-    # host crash: p99.9 of the count at risk 15 is below the buffer's bound 100, so the
-    # table shows the p99.9 and marks it as not a hard bound
-    assert dfr.lost_per_crash_bound == 15.0 and dfr.lost_per_crash_bound_is_hard is False
+    # host crash: mean 5, p99.9 15 (window() makes it three times the mean), bound 100
+    assert (dfr.lost_per_crash_mean, dfr.lost_per_crash_p999, dfr.lost_per_crash_hard_bound) \
+        == (5.0, 15.0, 100.0)
     loss = [c for c in dfr.cautions if c.topic == "loss"]
     assert {c.failure for c in loss} == {"process_crash", "host_crash"}
     assert all("on average 5.00 commits" in c.text for c in loss)
@@ -142,5 +142,5 @@ def test_cautions_name_the_deciding_regime_and_the_case_words():
     host = next(c for c in advice.options[0].cautions if c.failure == "host_crash")
     assert host.regime == "burst"
     assert "during burst (the nightly copy)" in host.text
-    assert "up to 50.0 commits" in host.text and "the log buffer's bound" in host.text
-    assert "on average 30.0 commits" in host.text
+    assert "up to 50 acknowledged commits can be lost (the log buffer's bound)" in host.text
+    assert "on average 30 commits" in host.text
