@@ -314,6 +314,54 @@ def evaluate(
     render_table(make_console(no_color), ev)
 
 
+class AdviseFormat(StrEnum):
+    table = "table"
+    json = "json"
+    markdown = "markdown"
+
+
+@app.command()
+def advise(
+    case: CaseArg,
+    policy: Annotated[list[Path] | None, typer.Option(
+        "--policy", help="An organisation rule file (TOML) that extends the built-in "
+        "cautious baseline, switches off its rules or replaces it; repeatable, applied in "
+        "order.", show_default=False)] = None,
+    fmt: Annotated[AdviseFormat, typer.Option(
+        "--format", help="table: for a terminal; markdown: a document; json: the documented "
+        "advice document.")] = AdviseFormat.table,
+    no_color: NoColor = False,
+) -> None:
+    """Rank the case's strategies under the recovery policy: a verdict for each (allowed,
+    needs sign-off, not allowed) with every rule met or broken, commit and top-tier p99 per
+    regime (ms), exposure and loss figures, and plain data-loss cautions with numbers."""
+    from commitadvisor.evaluate import evaluate as run
+    from commitadvisor.ranking import build_advice
+    from commitadvisor.rules_file import load_policy_set
+    from commitadvisor.stack import evaluate_stacks
+
+    c = _load(case)
+    try:
+        policies = load_policy_set(list(policy or ()))
+    except InputError as exc:
+        _fail(exc)
+    ev = run(c)
+    advice = build_advice(c, ev, policies, evaluate_stacks(c, ev.strategies))
+    if fmt is AdviseFormat.json:
+        from commitadvisor.render.advise_json import render_json
+
+        sys.stdout.write(render_json(advice))
+        return
+    if fmt is AdviseFormat.markdown:
+        from commitadvisor.render.advise_text import render_markdown
+
+        sys.stdout.write(render_markdown(advice))
+        return
+    from commitadvisor.render.advise import render_advice
+    from commitadvisor.render.console import make_console
+
+    render_advice(make_console(no_color), advice)
+
 def main() -> None:
     """Console-script entry point."""
     app()
