@@ -14,6 +14,7 @@ from commitadvisor.results import RegimeResult
 from commitadvisor.strategies.common import (
     Partial, assemble, safe, saturated_result, saturation, unbounded,
 )
+from commitadvisor.strategies.closed import solve_closed_rate
 from commitadvisor.strategies.context import DeviceInRegime, RegimeContext, stall_mixture
 
 __all__ = ["evaluate_regime", "writer_response", "device_exposures"]
@@ -93,27 +94,31 @@ def _closed(case: Case, s, ctx: RegimeContext, dev: DeviceInRegime) -> RegimeRes
     if ctx.think_fixed:
         notes.append("fixed think time: evaluated with the exponential-think chain "
                      "(approximation; check it with the simulator)")
-    x = None
-    z_eff = z + cpu_ms
-    cpu = L.Fixed(0.0)
-    for _ in range(3):  # the CPU station's wait lengthens the time between commits
+
+    def chain(think: float):
         if s.grouping == "none":
-            res = _one_per_commit_closed(ctx, dev, n, z_eff)
-        else:
-            res = W.closed_group_commit(lambda b: dev.flush(b, ctx.log_bytes), n, z_eff)
-        x = res.throughput_per_ms
-        if not ctx.cpus or cpu_ms <= 0:
-            break
+            return _one_per_commit_closed(ctx, dev, n, think)
+        return W.closed_group_commit(lambda b: dev.flush(b, ctx.log_bytes), n, think)
+
+    res = chain(z + cpu_ms)
+    x = res.throughput_per_ms
+    cpu = L.Fixed(0.0)
+    if ctx.cpus and cpu_ms > 0:
+        # sessions also queue for the CPU: solve X (Z + R_writer + R_cpu(X)) = N below the
+        # CPU ceiling (interactive response time law), then run the chain once more with
+        # the CPU time added to the think time
         cap = ctx.cpu_ceiling_per_ms(res.mean_batch, dev.overhead_ms)
-        if x >= 0.98 * cap:
-            x = 0.98 * cap
-        w = ctx.cpu_wait(x)
-        cpu = w if w is not None else L.Fixed(0.0)
-        if abs(z + cpu.mean_ms - z_eff) < 1e-3 * max(z_eff, 1e-9):
-            break
-        z_eff = z + cpu.mean_ms
+
+        def cpu_mean(v: float) -> float:
+            w = ctx.cpu_wait(v)
+            return float("inf") if w is None else w.mean_ms
+
+        x = solve_closed_rate(n, z + res.mean_response_ms, cpu_mean, cap)
+        cpu = ctx.cpu_wait(x) or L.Fixed(0.0)
+        res = chain(z + cpu.mean_ms)
+        x = min(res.throughput_per_ms, x)
     cap = ctx.cpu_ceiling_per_ms(res.mean_batch, dev.overhead_ms)
-    if cap is not None and res.throughput_per_ms > 0.97 * cap:
+    if cap is not None and x > 0.97 * cap:
         notes.append(f"the host's CPU is the bottleneck: throughput is near its ceiling of "
                      f"{cap * 1000:.0f} commits/s")
     resp, stalled = stall_mixture(res.response, dev, x, ctx.log_bytes)
