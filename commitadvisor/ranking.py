@@ -65,8 +65,18 @@ class RankInput:
     def key(self) -> tuple[Any, ...]:
         saturated = self.objective_ms is None
         return (VERDICTS.index(self.verdict), saturated,
-                0.0 if saturated else self.objective_ms, self.crash_exposure_ms,
-                self.device_exposure_ms, self.flushes_per_s, self.position)
+                0.0 if saturated else shown(self.objective_ms),
+                shown(self.crash_exposure_ms), shown(self.device_exposure_ms),
+                shown(self.flushes_per_s), self.position)
+
+
+def shown(x: float | None) -> float:
+    """``x`` at the precision the output shows (3 significant figures): model estimates
+    that differ by less than that do not decide a rank; the next figure does. Rounding is
+    monotone, so a strictly better figure never ranks lower."""
+    if x is None or x == 0 or math.isinf(x):
+        return 0.0 if x is None else x
+    return float(f"{x:.3g}")
 
 
 @dataclass(frozen=True)
@@ -92,21 +102,23 @@ def _explain(cur: RankInput, above: RankInput | None, objective_words: str) -> s
     if (above.objective_ms is None) != (cur.objective_ms is None):
         return f"same verdict as {above.name}, but {obj}: a saturated option comes last"
     if cur.objective_ms is not None and above.objective_ms is not None \
-            and cur.objective_ms != above.objective_ms:
-        return (f"same verdict as {above.name}; {obj}, against {_ms(above.objective_ms)}")
-    if cur.crash_exposure_ms != above.crash_exposure_ms:
-        return (f"same verdict and objective as {above.name}; a crash can take commits "
-                f"acknowledged up to {_ms(cur.crash_exposure_ms)} earlier (p99.9), against "
+            and shown(cur.objective_ms) != shown(above.objective_ms):
+        return f"same verdict as {above.name}; {obj}, against {_ms(above.objective_ms)}"
+    same = "same verdict and " + ("saturated too" if cur.objective_ms is None
+                                  else f"{objective_words} ({_ms(cur.objective_ms)})")
+    if shown(cur.crash_exposure_ms) != shown(above.crash_exposure_ms):
+        return (f"{same} as {above.name}; a crash can take commits acknowledged up to "
+                f"{_ms(cur.crash_exposure_ms)} earlier (p99.9), against "
                 f"{_ms(above.crash_exposure_ms)}")
-    if cur.device_exposure_ms != above.device_exposure_ms:
-        return (f"same verdict, objective and crash exposure as {above.name}; the loss of a "
-                f"device can take commits acknowledged up to {_ms(cur.device_exposure_ms)} "
-                f"earlier (p99.9), against {_ms(above.device_exposure_ms)}")
-    if cur.flushes_per_s != above.flushes_per_s:
-        return (f"same verdict, objective and exposure as {above.name}; "
+    if shown(cur.device_exposure_ms) != shown(above.device_exposure_ms):
+        return (f"{same} and crash exposure as {above.name}; the loss of a device can take "
+                f"commits acknowledged up to {_ms(cur.device_exposure_ms)} earlier (p99.9), "
+                f"against {_ms(above.device_exposure_ms)}")
+    if shown(cur.flushes_per_s) != shown(above.flushes_per_s):
+        return (f"{same} and exposure as {above.name}; "
                 f"{format_value(cur.flushes_per_s, 'per_s')} log flushes against "
                 f"{format_value(above.flushes_per_s, 'per_s')}")
-    return f"ties with {above.name} on every figure; kept in the case's order"
+    return f"ties with {above.name} on every figure shown; kept in the case's order"
 
 
 def rank(options: Sequence[RankInput], objective_words: str = "commit p99"

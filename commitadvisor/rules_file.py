@@ -316,17 +316,20 @@ def load_policy(path: str | Path) -> Policy:
     return parse_policy(parse_text(text, name, ".toml"), name)
 
 
-def baseline_text() -> str:
-    """The baseline policy's text: ``rules/baseline.toml`` beside the package when the
-    repository is at hand, else the copy shipped inside the installed package."""
-    repo_copy = Path(__file__).resolve().parent.parent / "rules" / "baseline.toml"
-    if repo_copy.is_file():
+def baseline_text(repo_root: Path | None = None) -> str:
+    """The baseline policy's text: ``rules/baseline.toml`` of the repository when the
+    package runs from one, else the copy shipped inside the installed package
+    (``commitadvisor/rules/baseline.toml``)."""
+    root = repo_root if repo_root is not None else Path(__file__).resolve().parent.parent
+    repo_copy = root / "rules" / "baseline.toml"
+    if repo_copy.is_file() and (root / "pyproject.toml").is_file():
         return repo_copy.read_text(encoding="utf-8")
     shipped = resources.files("commitadvisor").joinpath("rules/baseline.toml")
     if shipped.is_file():
         return shipped.read_text(encoding="utf-8")
     raise InputError(BASELINE_SOURCE, [InputProblem(
-        "", "the baseline policy (rules/baseline.toml) is not installed with this package")])
+        "", "the baseline policy is not installed with this package; reinstall it, or "
+            "give a policy file with replaces_baseline = true")])
 
 
 def load_baseline() -> Policy:

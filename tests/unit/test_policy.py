@@ -29,7 +29,13 @@ from commitadvisor.policy import (
     judge_strategy,
 )
 from commitadvisor.results import Evaluation, Exposure, RegimeResult, Saturation, StrategyResult
-from commitadvisor.rules_file import compose, load_baseline, load_policy, load_policy_set
+from commitadvisor.rules_file import (
+    baseline_text,
+    compose,
+    load_baseline,
+    load_policy,
+    load_policy_set,
+)
 
 
 # --------------------------------------------------------------------------- builders
@@ -575,3 +581,31 @@ def test_outcomes_are_frozen():
     with pytest.raises(FrozenInstanceError):
         v.verdict = "allowed"  # type: ignore[misc]
     assert isinstance(v.outcomes, tuple) and isinstance(v.outcomes[0].checks, tuple)
+
+
+def test_the_baseline_is_read_from_the_repository_and_its_absence_is_a_clear_error(tmp_path):
+    from importlib import resources
+
+    root = Path(__file__).resolve().parents[2]
+    assert baseline_text() == (root / "rules" / "baseline.toml").read_text(encoding="utf-8")
+    shipped = resources.files("commitadvisor").joinpath("rules/baseline.toml").is_file()
+    if shipped:  # an installed package: its own copy is used outside the repository
+        assert 'policy = "Cautious baseline"' in baseline_text(tmp_path)
+    else:  # running from the source tree: outside it there is no baseline to be found
+        with pytest.raises(InputError, match="not installed with this package"):
+            baseline_text(tmp_path)
+
+
+def test_docs_list_every_metric_placeholder_comparison_field_and_baseline_rule():
+    from commitadvisor.policy import CASE_FIELDS, COMPARISONS, PLACEHOLDERS
+
+    text = (Path(__file__).resolve().parents[2] / "docs" / "rules.md").read_text("utf-8")
+    for name in (*METRICS, *COMPARISONS):
+        assert f"`{name}`" in text, name
+    for name in PLACEHOLDERS:
+        assert f"`{{{name}}}`" in text, name
+    for field in CASE_FIELDS:
+        if "{failure}" in field:
+            assert f"`{field.replace('{failure}', '<kind>')}`" in text, field
+    for _, rule in load_policy_set().rules():
+        assert f"`{rule.id}`" in text, rule.id
