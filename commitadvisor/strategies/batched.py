@@ -45,13 +45,13 @@ class Capped(L.Latency):
 
     @property
     def mean_ms(self) -> float:
-        x = np.linspace(0, self.cap_ms, 4001)
+        x = np.linspace(0, self.cap_ms, 1025)
         sf = self.base.sf(x)
         return float(np.sum(np.diff(x) * (sf[1:] + sf[:-1]) / 2))
 
     @property
     def second_moment_ms2(self) -> float:
-        x = np.linspace(0, self.cap_ms, 4001)
+        x = np.linspace(0, self.cap_ms, 1025)
         g = 2 * x * self.base.sf(x)
         return float(np.sum(np.diff(x) * (g[1:] + g[:-1]) / 2))
 
@@ -146,10 +146,7 @@ def _closed_rate(ctx: RegimeContext, s, dev) -> float:
     """Rate of N sessions under batched commit (see commitadvisor.strategies.closed)."""
 
     def mean_response(x: float) -> float:
-        cpu = ctx.cpu_wait(x)
-        if cpu is None:
-            return float("inf")
-        return cpu.mean_ms + _mean_wait(dev, ctx, x, s.gather_target_commits, s.gather_window_ms)
+        return ctx.cpu_mean_ms(x) + _mean_wait(dev, ctx, x, s.gather_target_commits, s.gather_window_ms)
 
     cap = ctx.cpu_ceiling_per_ms(s.gather_target_commits, dev.overhead_ms)
     bw = dev.bandwidth_bytes_per_ms / ctx.log_bytes

@@ -27,7 +27,7 @@ def solve_closed_rate(sessions: int, think_ms: float, mean_response_ms: Callable
     if ceiling_per_ms is not None:
         hi = min(hi, ceiling_per_ms * (1 - 1e-9))
     lo = 0.0
-    for _ in range(36):  # relative precision ~1e-11 of the bracket
+    for _ in range(30):  # relative precision ~1e-9 of the bracket
         mid = (lo + hi) / 2
         r = mean_response_ms(mid)
         if mid * (think_ms + r) > sessions:

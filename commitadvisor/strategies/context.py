@@ -70,6 +70,17 @@ class RegimeContext:
             return None
         return L.convolve(wait, L.Exponential(self.cpu_ms_per_commit))
 
+    def cpu_mean_ms(self, rate_per_ms: float) -> float:
+        """Mean time at the CPU station: Erlang C wait C S / (c - a) plus the CPU work S
+        (inf when saturated)."""
+        if not self.cpus or self.cpu_ms_per_commit <= 0:
+            return 0.0
+        s, c = self.cpu_ms_per_commit, self.cpus
+        a = rate_per_ms * s
+        if a >= c:
+            return float("inf")
+        return W.erlang_c(c, a) * s / (c - a) + s
+
     def wake_cost(self, mean_batch: float) -> float:
         """Mean extra delay of waking a batch: the k-th woken waits ceil(k / cpus) wake costs."""
         if self.wake_ms <= 0:

@@ -100,9 +100,6 @@ def _closed_rate(ctx: RegimeContext) -> float:
     """Closed sessions acknowledged from the buffer cycle through think time and the CPU
     station only (see commitadvisor.strategies.closed)."""
 
-    def cpu_mean(x: float) -> float:
-        w = ctx.cpu_wait(x)
-        return float("inf") if w is None else w.mean_ms
-
+    cpu_mean = ctx.cpu_mean_ms
     cap = ctx.cpus / ctx.cpu_ms_per_commit if ctx.cpus and ctx.cpu_ms_per_commit > 0 else None
     return solve_closed_rate(ctx.sessions, ctx.think_ms, cpu_mean, cap)

@@ -109,11 +109,7 @@ def _closed(case: Case, s, ctx: RegimeContext, dev: DeviceInRegime) -> RegimeRes
         # the CPU time added to the think time
         cap = ctx.cpu_ceiling_per_ms(res.mean_batch, dev.overhead_ms)
 
-        def cpu_mean(v: float) -> float:
-            w = ctx.cpu_wait(v)
-            return float("inf") if w is None else w.mean_ms
-
-        x = solve_closed_rate(n, z + res.mean_response_ms, cpu_mean, cap)
+        x = solve_closed_rate(n, z + res.mean_response_ms, ctx.cpu_mean_ms, cap)
         cpu = ctx.cpu_wait(x) or L.Fixed(0.0)
         res = chain(z + cpu.mean_ms)
         x = min(res.throughput_per_ms, x)
