@@ -362,6 +362,148 @@ def advise(
 
     render_advice(make_console(no_color), advice)
 
+
+# --------------------------------------------------------------- benchmark review, sign-off
+class ReviewFormat(StrEnum):
+    text = "text"
+    json = "json"
+    markdown = "markdown"
+
+
+@app.command("review-benchmark")
+def review_benchmark(
+    case: CaseArg,
+    fmt: Annotated[ReviewFormat, typer.Option(
+        "--format", help="text: for a terminal; json: the versioned review document; "
+        "markdown: a section to paste into a review.")] = ReviewFormat.text,
+    no_color: NoColor = False,
+) -> None:
+    """Review the case's [benchmark] section: what the same sessions reach with durable
+    commits (synchronous and batched, per regime: commits/s, mean and p99 ms), how many
+    acknowledged commits were at risk during a deferred-commit run (mean, peak and bound,
+    with their value), whether the reported rate is possible with durable commits (the
+    sessions, bandwidth and CPU bounds), and a verdict paragraph. Exit status 2 when the case
+    has no [benchmark] section."""
+    from commitadvisor.review import NoBenchmark
+    from commitadvisor.review import review_benchmark as run
+
+    c = _load(case)
+    try:
+        review = run(c)
+    except NoBenchmark as exc:
+        sys.stderr.write(f"{case}: {exc}\n")
+        raise typer.Exit(EXIT_INPUT) from None
+    if fmt is ReviewFormat.json:
+        from commitadvisor.render.review import review_json
+
+        sys.stdout.write(review_json(review))
+        return
+    if fmt is ReviewFormat.markdown:
+        from commitadvisor.render.review import review_markdown
+
+        sys.stdout.write(review_markdown(review))
+        return
+    from commitadvisor.render.console import make_console
+    from commitadvisor.render.review import render_review_text
+
+    render_review_text(make_console(no_color), review)
+
+
+_SIGNOFF_HELP = (
+    "Write a risk sign-off document (Markdown) for one strategy, for the recovery-policy "
+    "owner.\n\n"
+    "It states what is decided and leaves blank fields for the decision owner, the "
+    "recovery-policy owner, the architect and the reviewer; records the SHA-256 of the case "
+    "file and of each policy file, the tool's version and the seed; gives the per-regime "
+    "figures (ms, commits/s, commits at risk) of the chosen strategy and of the best durable "
+    "alternative, the exposure and loss in plain words, every rule met or broken, every "
+    "caution, the simulator's check of the figures, the model's limits and the deferral to the "
+    "organisation's recovery policy. The file is written atomically and never overwritten "
+    "without --force. Exit status 2 for an unknown strategy (the names are listed), an "
+    "existing file, or an input that cannot be used."
+)
+
+
+@app.command("signoff", help=_SIGNOFF_HELP)
+def signoff(
+    case: CaseArg,
+    strategy: Annotated[str, typer.Option(
+        "--strategy", help="The name of the strategy to sign off (as 'check' lists it).",
+        show_default=False)],
+    out: Annotated[Path, typer.Option(
+        "--out", help="The Markdown file to write (its directory must exist).",
+        show_default=False)],
+    policy: Annotated[list[Path] | None, typer.Option(
+        "--policy", help="An organisation rule file (TOML), as for 'advise'; repeatable.",
+        show_default=False)] = None,
+    force: Annotated[bool, typer.Option("--force", help="Overwrite an existing file.")] = False,
+    seed: Annotated[int, typer.Option(
+        "--seed", min=0, help="Seed of the simulator's check (recorded in the document).")] = 1,
+    no_verify: Annotated[bool, typer.Option(
+        "--no-verify", help="Skip the simulator's check; the document says it was "
+        "skipped.")] = False,
+) -> None:
+    """Write a risk sign-off document; see _SIGNOFF_HELP."""
+    from commitadvisor.files import write_atomically
+    from commitadvisor.signoff import PolicyFile, build_signoff, sha256_hex
+
+    c = _load(case)
+    names = c.strategy_names()
+    if strategy not in names:
+        sys.stderr.write(f"{case}: no strategy is named '{strategy}'; the case's strategies "
+                         f"are: {', '.join(names)}\n")
+        raise typer.Exit(EXIT_INPUT)
+    if out.exists() and not force:
+        sys.stderr.write(f"{out}: exists already; use --force to overwrite it\n")
+        raise typer.Exit(EXIT_INPUT)
+    if not out.parent.is_dir():
+        _fail_file(out, ValueError("its directory does not exist"))
+    from commitadvisor.evaluate import evaluate as run
+    from commitadvisor.ranking import build_advice
+    from commitadvisor.rules_file import baseline_text, load_policy_set
+    from commitadvisor.stack import evaluate_stacks
+
+    try:
+        policies = load_policy_set(list(policy or ()))
+        files = tuple(PolicyFile(p.name, p.source, sha256_hex(
+            baseline_text().encode("utf-8") if p.is_baseline else Path(p.source).read_bytes()))
+            for p in policies.policies)
+    except InputError as exc:
+        _fail(exc)
+    ev = run(c)
+    advice = build_advice(c, ev, policies, evaluate_stacks(c, ev.strategies))
+    verification = _signoff_verification(c, ev, seed, no_verify)
+    doc = build_signoff(
+        c, case_file=str(case), case_sha256=sha256_hex(case.read_bytes()), policies=files,
+        tool_version=__version__, seed=seed, strategy=strategy, evaluation=ev, advice=advice,
+        verification=verification)
+    from commitadvisor.render.signoff_md import signoff_markdown
+
+    try:
+        write_atomically(out, signoff_markdown(doc), force=force)
+    except FileExistsError:
+        sys.stderr.write(f"{out}: exists already; use --force to overwrite it\n")
+        raise typer.Exit(EXIT_INPUT) from None
+    except OSError as exc:
+        _fail_file(out, ValueError(f"cannot be written: {exc.strerror or exc}"))
+    typer.echo(f"wrote {out}")
+
+
+def _signoff_verification(c, ev, seed: int, no_verify: bool):
+    """The simulator's check of the evaluation for the sign-off, or why there is none."""
+    from commitadvisor.signoff import Verification
+
+    if no_verify:
+        return Verification("skipped", seed)
+    import importlib.util
+
+    if importlib.util.find_spec("commitadvisor.verify") is None:
+        return Verification("unavailable", seed, summary="this version of commitadvisor has "
+                            "no simulator check (commitadvisor.verify)")
+    return Verification("unavailable", seed, summary="the simulator's check is not yet wired "
+                        "into the sign-off")
+
+
 def main() -> None:
     """Console-script entry point."""
     app()
