@@ -333,6 +333,7 @@ def baseline_text(repo_root: Path | None = None) -> str:
 
 
 def load_baseline() -> Policy:
+    """The cautious baseline policy, validated like any rule file."""
     text = baseline_text()
     return parse_policy(parse_text(text, "rules/baseline.toml", ".toml"), "rules/baseline.toml",
                         is_baseline=True)

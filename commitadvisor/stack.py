@@ -64,11 +64,14 @@ __all__ = [
     "APPROXIMATIONS",
 ]
 
+AMPLIFICATION_MIN_MS = 0.01  # below this change of the commit p99 no factor is given
+
 APPROXIMATIONS = (
     "thread wait: Erlang C (M/M/c) probability of waiting on the offered load, with its "
     "exponential wait law P(W > t) = C e^{-(c mu - lambda) t}; the holding times are not "
     "exponential, so the wait is an approximation (exact for M/M/c)",
-    "calls: independent draws from the regime's distributions, made one after the other",
+    "calls: independent draws from the regime's distributions, made one after the other; "
+    "the calls that do not commit keep their profile in every regime",
     "the commit latency each regime feeds in is the database's in that regime, held fixed "
     "when the saturating request rate is sought",
     "a device stall holds every commit that arrives during it at once; independent holding "
@@ -199,7 +202,9 @@ class StackRegime:
     commits_per_request: float
     slow_commit_share: float | None  # P(commit latency > goal) in this regime
     slow_request_chance: float | None  # P(a top request meets at least one slow commit)
-    amplification: float | None  # (top p99 - normal top p99) / (commit p99 - normal commit p99)
+    # (top p99 - normal top p99) / (commit p99 - normal commit p99); None when the commit p99
+    # moves by less than 1 % (and 0.01 ms): the ratio would be noise
+    amplification: float | None
     cautions: tuple[str, ...] = ()
     top_latency: Any = field(default=None, repr=False, compare=False)
 
@@ -425,7 +430,8 @@ def _with_amplification(regimes: list[StackRegime]) -> list[StackRegime]:
         if r is not normal and not r.saturated and r.commit_p99_ms is not None \
                 and normal.commit_p99_ms is not None:
             d_commit = r.commit_p99_ms - normal.commit_p99_ms
-            if abs(d_commit) > 1e-9 * max(1.0, normal.commit_p99_ms):
+            # a ratio of two grid-level differences would be noise, not amplification
+            if abs(d_commit) >= max(AMPLIFICATION_MIN_MS, 0.01 * normal.commit_p99_ms):
                 amp = (r.top_p99_ms - normal.top_p99_ms) / d_commit
         out.append(replace(r, amplification=amp))
     return out

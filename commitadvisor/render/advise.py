@@ -19,6 +19,8 @@ _VERDICT_STYLE = {"allowed": "green", "needs sign-off": "yellow", "not allowed":
 
 
 def render_advice(console: Console, a: Advice) -> None:
+    """Print the advice: summary line, ranked table (units in the headers), each option's
+    place, rules, cautions and deciding regime, the policies in force and the deferral."""
     console.print(f"[bold]{escape(a.summary)}[/bold]")
     console.print(f"{escape(a.title)}: {a.method} estimates; options ranked by verdict, then "
                   f"{a.objective} in the worst regime, then exposure, then flushes per second.")

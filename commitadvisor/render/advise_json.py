@@ -93,4 +93,5 @@ def advice_document(a: Advice) -> dict[str, Any]:
 
 
 def render_json(a: Advice) -> str:
+    """The advice document as indented JSON text ending in a newline."""
     return json.dumps(advice_document(a), indent=2, ensure_ascii=False) + "\n"

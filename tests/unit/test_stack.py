@@ -189,3 +189,13 @@ def test_fixed_holding_keeps_its_atom():
               "commit_share": 1.0}]
     res = evaluate_stack(stack_case(tiers), sync_result(Fixed(1.0), Fixed(1.0)))
     assert res.regime("normal").top_p99_ms == pytest.approx(4.0, rel=1e-3)
+
+
+def test_no_amplification_factor_when_the_commit_p99_barely_moves():
+    # a burst that leaves the commit p99 where it was (1e-4 ms apart) gives no factor, not
+    # the ratio of two rounding-level differences
+    n = Lognormal.from_percentiles(1.0, 4.0)
+    b = Lognormal(n.mu + 2e-5, n.sigma)
+    res = evaluate_stack(stack_case(two_tiers()), sync_result(n, b))
+    assert abs(res.regime("burst").commit_p99_ms - res.regime("normal").commit_p99_ms) < 1e-3
+    assert res.regime("burst").amplification is None
