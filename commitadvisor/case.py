@@ -105,7 +105,8 @@ class TableProfile(_Model):
         if any(b <= a for a, b in zip(self.quantiles, self.quantiles[1:], strict=False)):
             raise ValueError("quantiles must be strictly increasing")
         if any(b < a for a, b in zip(self.ms, self.ms[1:], strict=False)):
-            raise ValueError("ms must not decrease as the quantile grows (percentiles out of order)")
+            raise ValueError("ms must not decrease as the quantile grows "
+                             "(percentiles out of order)")
         if self.ms[-1] <= 0:
             raise ValueError("the largest ms value must be above zero")
         return self
@@ -281,7 +282,8 @@ class Regime(_Model):
             raise ValueError(f"'{NORMAL}' is implied; give the regime another name")
         if self.duration_s >= self.period_s:
             raise ValueError(
-                f"duration_s ({self.duration_s:g}) must be shorter than period_s ({self.period_s:g})"
+                f"duration_s ({self.duration_s:g}) must be shorter than period_s "
+                f"({self.period_s:g})"
             )
         if self.offset_s >= self.period_s:
             raise ValueError(
@@ -490,7 +492,8 @@ class Case(_Model):
         given = self.workload.commit_rate_per_s
         if given is not None and abs(given - rate) > 0.01 * rate:
             out.append(f"workload.commit_rate_per_s: {given:g}/s contradicts the stack, whose "
-                       f"request rate and calls imply {rate:g} commits/s; give one or make them agree")
+                       f"request rate and calls imply {rate:g} commits/s; give one or make "
+                       "them agree")
         if rate <= 0:
             out.append("stack: the stack implies no commits at all (a calls_per_request or "
                        "commit_share of 0)")
@@ -682,7 +685,8 @@ def _problems_from(exc: ValidationError) -> list[InputProblem]:
         elif kind == "union_tag_invalid":
             msg = err["msg"].replace("Input tag", "kind").replace("found using 'kind' ", "")
         elif kind == "union_tag_not_found":
-            msg = "needs a 'kind' (" + _TAG_CHOICES.get(path.rsplit(".", 1)[-1], "see the README") + ")"
+            choices = _TAG_CHOICES.get(path.rsplit(".", 1)[-1], "see the README")
+            msg = f"needs a 'kind' ({choices})"
         elif kind == "value_error":
             ctx = err.get("ctx", {})
             text = str(ctx.get("error", err["msg"]))
@@ -746,7 +750,8 @@ def parse_text(text: str, name: str, suffix: str) -> Any:
         try:
             return json.loads(text)
         except json.JSONDecodeError as exc:
-            raise InputError(name, [InputProblem("", f"JSON syntax: {exc.msg}", exc.lineno)]) from None
+            problem = InputProblem("", f"JSON syntax: {exc.msg}", exc.lineno)
+            raise InputError(name, [problem]) from None
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -781,9 +786,6 @@ def _all_profiles(case: Case):
             yield f"stack[{i}].other_call", t.other_call
 
 
-_UNIT_MS = {"us": 1e-3, "ms": 1.0, "s": 1e3}
-
-
 def _load_samples(case: Case, file: str, base_dir: Path) -> None:
     problems = []
     for path, prof in _all_profiles(case):
@@ -801,37 +803,21 @@ def _load_samples(case: Case, file: str, base_dir: Path) -> None:
 
 
 def read_samples_file(path: Path, unit: str) -> tuple[float, ...]:
-    """Latencies from a CSV file, one per line, converted from ``unit`` to ms.
+    """Latencies from a samples CSV (the format ``measure`` writes and ``fit-profile``
+    reads: one value per line, ``#`` comments, one header line allowed), in ms."""
+    from commitadvisor.measure_io import read_samples_csv
 
-    Blank lines and lines starting with ``#`` are skipped; one non-numeric header line at
-    the top is allowed.
-    """
-    name = str(path)
     try:
-        lines = path.read_text(encoding="utf-8").splitlines()
-    except OSError as exc:
-        raise InputError(name, [InputProblem("", f"cannot be read: {exc.strerror or exc}")]) from None
-    values = []
-    header_allowed = True
-    for no, raw in enumerate(lines, start=1):
-        text = raw.split(",")[0].strip()
-        if not text or text.startswith("#"):
-            continue
-        try:
-            v = float(text)
-        except ValueError:
-            if header_allowed:
-                header_allowed = False
-                continue
-            raise InputError(name, [InputProblem("", f"'{text}' is not a number", no)]) from None
-        header_allowed = False
-        if not math.isfinite(v) or v < 0:
-            raise InputError(name, [InputProblem("", f"{text} is not a latency (must be >= 0)", no)])
-        values.append(v * _UNIT_MS[unit])
+        values = read_samples_csv(path, unit)
+    except ValueError as exc:
+        text = str(exc)
+        if text.startswith(str(path)):
+            text = text[len(str(path)):].lstrip(": ")
+        raise InputError(str(path), [InputProblem("", text)]) from None
     if len(values) < 10:
-        raise InputError(name, [InputProblem("", f"has {len(values)} latencies; at least 10 "
-                                             "are needed for a profile")])
-    return tuple(values)
+        raise InputError(str(path), [InputProblem("", f"has {len(values)} latencies; at least "
+                                                  "10 are needed for a profile")])
+    return tuple(float(v) for v in values)
 
 
 def case_json_schema() -> dict[str, Any]:

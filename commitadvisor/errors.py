@@ -17,7 +17,9 @@ class InputProblem:
 
     def describe(self, file: str) -> str:
         where = f"{file}:{self.line}" if self.line else file
-        return f"{where}: {self.field}: {self.message}" if self.field else f"{where}: {self.message}"
+        if self.field:
+            return f"{where}: {self.field}: {self.message}"
+        return f"{where}: {self.message}"
 
 
 class InputError(Exception):

@@ -22,7 +22,8 @@ def render_summary(console: Console, file: str, s: CaseSummary) -> None:
     t = Table(title="Log devices per regime", title_justify="left")
     for col, just in (("device", "left"), ("regime", "left"), ("flush p50 ms", "right"),
                       ("flush p99 ms", "right"), ("mean ms", "right"), ("stalls /s", "right"),
-                      ("stall p50 ms", "right"), ("MB/s", "right"), ("durable when flushed", "left")):
+                      ("stall p50 ms", "right"), ("MB/s", "right"),
+                      ("durable when flushed", "left")):
         t.add_column(col, justify=just)  # type: ignore[arg-type]
     for r in s.devices:
         t.add_row(r.device, r.regime, f"{r.p50_ms:.3g}", f"{r.p99_ms:.3g}", f"{r.mean_ms:.3g}",

@@ -21,8 +21,8 @@ import numpy as np
 from commitadvisor import latency as L
 from commitadvisor.case import Case
 from commitadvisor.results import RegimeResult
-from commitadvisor.strategies.common import Partial, assemble, saturated_result, saturation
 from commitadvisor.strategies.closed import CLOSED_NOTE, solve_closed_rate
+from commitadvisor.strategies.common import Partial, assemble, saturated_result, saturation
 from commitadvisor.strategies.context import RegimeContext, stall_mixture
 from commitadvisor.strategies.synchronous import device_exposures
 
@@ -146,7 +146,8 @@ def _closed_rate(ctx: RegimeContext, s, dev) -> float:
     """Rate of N sessions under batched commit (see commitadvisor.strategies.closed)."""
 
     def mean_response(x: float) -> float:
-        return ctx.cpu_mean_ms(x) + _mean_wait(dev, ctx, x, s.gather_target_commits, s.gather_window_ms)
+        k, window = s.gather_target_commits, s.gather_window_ms
+        return ctx.cpu_mean_ms(x) + _mean_wait(dev, ctx, x, k, window)
 
     cap = ctx.cpu_ceiling_per_ms(s.gather_target_commits, dev.overhead_ms)
     bw = dev.bandwidth_bytes_per_ms / ctx.log_bytes

@@ -19,10 +19,15 @@ import numpy as np
 from commitadvisor import latency as L
 from commitadvisor.case import Case
 from commitadvisor.results import RegimeResult
-from commitadvisor.strategies.common import (
-    Partial, assemble, from_window, saturated_result, saturation, unbounded,
-)
 from commitadvisor.strategies.closed import CLOSED_NOTE, solve_closed_rate
+from commitadvisor.strategies.common import (
+    Partial,
+    assemble,
+    from_window,
+    saturated_result,
+    saturation,
+    unbounded,
+)
 from commitadvisor.strategies.context import RegimeContext
 
 __all__ = ["evaluate_regime"]

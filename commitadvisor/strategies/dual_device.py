@@ -17,7 +17,13 @@ from commitadvisor import latency as L
 from commitadvisor.case import Case
 from commitadvisor.results import RegimeResult
 from commitadvisor.strategies.common import (
-    Partial, assemble, from_window, safe, saturated_result, saturation, unbounded,
+    Partial,
+    assemble,
+    from_window,
+    safe,
+    saturated_result,
+    saturation,
+    unbounded,
 )
 from commitadvisor.strategies.context import RegimeContext, stall_mixture
 from commitadvisor.strategies.synchronous import writer_response

@@ -11,10 +11,15 @@ from commitadvisor import latency as L
 from commitadvisor import writer as W
 from commitadvisor.case import Case
 from commitadvisor.results import RegimeResult
-from commitadvisor.strategies.common import (
-    Partial, assemble, safe, saturated_result, saturation, unbounded,
-)
 from commitadvisor.strategies.closed import solve_closed_rate
+from commitadvisor.strategies.common import (
+    Partial,
+    assemble,
+    safe,
+    saturated_result,
+    saturation,
+    unbounded,
+)
 from commitadvisor.strategies.context import DeviceInRegime, RegimeContext, stall_mixture
 
 __all__ = ["evaluate_regime", "writer_response", "device_exposures"]

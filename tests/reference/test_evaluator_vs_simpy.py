@@ -57,7 +57,8 @@ def test_synchronous_with_time_based_stalls():
     (1200, 1.0, 8, 0.6, 3.0), (5000, 2.0, 8, 0.6, 3.0), (300, 1.0, 8, 0.6, 3.0),
 ])
 def test_batched_commit(rate, window, target, p50, p99):
-    case = make_case(workload={"commit_rate_per_s": float(rate)}, device_a=lognormal_device(p50, p99),
+    case = make_case(workload={"commit_rate_per_s": float(rate)},
+                     device_a=lognormal_device(p50, p99),
                      strategies=[{"kind": "batched", "device": "a", "gather_window_ms": window,
                                   "gather_target_commits": target}])
     r = evaluate(case).strategies[0].regimes[0]
