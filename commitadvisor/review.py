@@ -542,6 +542,10 @@ def review_benchmark(case: Case) -> BenchmarkReview:
                        risk, feas[0], rep)
     notes = ["the sessions' think time is taken as exponential (the closed chain is exact "
              "for it); the benchmark's own think-time distribution is not known"]
+    if not case.devices[b.device].counts_as_durable:
+        notes.append(f"{b.device} has a volatile write cache not declared as honouring "
+                     "flushes: the 'durable' figures are those of waiting for its flush, which "
+                     "the case does not count as durable")
     if len(contexts) > 1:
         notes.append("the benchmark is taken to have run in the normal regime; the other "
                      "regimes show what durable commits reach during them")

@@ -44,7 +44,7 @@ currency = "EUR"
 [goals]
 commit_p99_ms = 20.0
 [devices.d]
-cache = "power_loss_protected"
+cache = "{cache}"
 bandwidth_mb_per_s = {bandwidth}
 profile_block_bytes = {block}
 latency.normal = {{ kind = "lognormal", p50_ms = {p50}, p99_ms = {p99} }}
@@ -56,9 +56,9 @@ device = "d"
 
 
 def make_case(benchmark: str, *, log_bytes=1, host="", bandwidth=1000.0, block=1048576,
-              p50=1.0, p99=10.0):
+              p50=1.0, p99=10.0, cache="power_loss_protected"):
     text = BASE.format(log_bytes=log_bytes, host=host, bandwidth=bandwidth, block=block,
-                       p50=p50, p99=p99, benchmark=benchmark)
+                       p50=p50, p99=p99, benchmark=benchmark, cache=cache)
     return parse_case(tomllib.loads(text))
 
 
@@ -307,6 +307,16 @@ def test_without_a_buffer_size_the_most_is_one_cycle_plus_the_flush_in_flight():
     assert lam * (20.0 + a.flush_mean_ms) < a.at_most
     assert a.at_most <= lam * (20.0 + a.flush_p999_ms) + 4 * math.sqrt(lam * 20.0) + 1
     assert "no buffer size" in a.at_most_basis
+
+
+def test_a_volatile_device_leaves_the_host_crash_loss_unbounded_and_says_so():
+    case = make_case(bench(2000.0, 2.0, 30, "deferred", "flush_every_ms = 20.0\n"),
+                     cache="volatile")
+    r = review_benchmark(case)
+    assert not r.at_risk.host_bounded and not r.device_counts_as_durable
+    assert "without bound" in r.verdict and "not count as durable" in r.verdict
+    assert any("volatile write cache" in n for n in r.notes)
+    assert all(f.copies_at_ack == 0 for f in r.durable)
 
 
 def test_a_durable_benchmark_has_nothing_at_risk():
