@@ -453,24 +453,25 @@ def _verdict(case: Case, think: ThinkTime, sync: DurableFigure, bat: DurableFigu
             f"The reported {_n(b.reported_commits_per_s)} commits/s ({lat}, {b.sessions} "
             f"sessions) were measured with deferred commit: each commit was acknowledged "
             f"from the log buffer before it was durable, and the buffer was flushed every "
-            f"{_n(b.flush_every_ms, 'ms')}. That is a valid measurement of deferred commit; it "
-            "does not show what durable commits reach.")
+            f"{_n(b.flush_every_ms, 'ms')}. That is a valid measurement of deferred commit, not "
+            "of durable commits.")
         if risk.host_bounded:
-            parts.append(
-                f"During the run about {_n(risk.host_at_risk_mean)} acknowledged commits were "
-                f"at risk at any instant on average (Little's law: {_n(risk.rate_per_s)}/s "
-                f"x {_n(risk.host_window_mean_ms, 'ms')}, the mean wait for the next flush "
-                f"plus the flush), up to {_n(risk.steady_peak)} just before a flush completed "
-                f"(in 999 of 1,000 flush cycles), and at most {_n(risk.at_most)} "
-                f"({risk.at_most_basis}). A "
-                f"power loss at the steady peak would have lost about {_n(risk.steady_peak)} "
-                "acknowledged commits"
-                + (f" (worth {_n(risk.value_steady_peak)} {cur})" if risk.value_steady_peak
-                   else "")
-                + (f"; with the flushes stopped, up to {_n(risk.at_most)}"
-                   + (f" ({_n(risk.value_at_most)} {cur})" if risk.value_at_most else "")
-                   if risk.buffer_bound is not None else "")
-                + ".")
+            money = (f" (worth {_n(risk.value_steady_peak)} {cur})"
+                     if risk.value_steady_peak else "")
+            text = (f"During the run about {_n(risk.host_at_risk_mean)} acknowledged commits "
+                    f"were at risk at any instant on average (Little's law: "
+                    f"{_n(risk.rate_per_s)}/s x {_n(risk.host_window_mean_ms, 'ms')}, the wait "
+                    f"for the next flush plus the flush) and up to {_n(risk.steady_peak)} just "
+                    f"before a flush completed (in 999 of 1,000 flush cycles): a power loss "
+                    f"then would have lost those {_n(risk.steady_peak)}{money}.")
+            if risk.buffer_bound is not None:
+                text += (f" Had the flushes stopped for {_n(risk.buffer_fill_ms, 'ms')}, the "
+                         f"full log buffer would have held {_n(risk.at_most)}"
+                         + (f" ({_n(risk.value_at_most)} {cur})" if risk.value_at_most else "")
+                         + ", the most it can lose.")
+            else:
+                text += f" The most it can lose: {_n(risk.at_most)} ({risk.at_most_basis})."
+            parts.append(text)
         else:
             parts.append(
                 f"{dev} does not count as durable, so a power loss during the run could have "
