@@ -189,3 +189,9 @@ def test_signoff_without_no_verify_reports_the_simulator_check(tmp_path):
         assert "NOT checked against the simulator" in md and "Incomplete section" in md
         return
     pytest.skip("covered by the simulator check test once commitadvisor.verify exists")
+
+
+def test_signoff_with_a_missing_policy_file_exits_2(tmp_path):
+    r, out = _signoff(tmp_path, "--no-verify", "--policy", str(tmp_path / "absent.toml"))
+    assert r.exit_code == 2 and "no such file" in r.output
+    assert not out.exists()
