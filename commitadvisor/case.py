@@ -209,7 +209,8 @@ class Recovery(_Model):
     device_loss: FailureKind
     value_per_commit: NonNegFloat | None = None
     currency: str | None = None
-    copies_at_ack: Annotated[int, Field(ge=1, le=2)] = 1
+    # 0: acknowledging before any durable copy is acceptable within the loss windows
+    copies_at_ack: Annotated[int, Field(ge=0, le=2)] = 1
 
     @model_validator(mode="after")
     def _currency(self) -> Recovery:
