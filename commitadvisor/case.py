@@ -732,17 +732,21 @@ def parse_case(data: Any, file: str = "<case>", base_dir: Path | None = None) ->
 def load_case(path: str | Path) -> Case:
     """Read and validate a case file (``.toml`` or ``.json``)."""
     p = Path(path)
+    data = parse_text(read_input_text(p, "a case file"), str(path), p.suffix.lower())
+    return parse_case(data, str(path), p.parent)
+
+
+def read_input_text(path: Path, what: str) -> str:
+    """The text of an input file, or an InputError that says why it cannot be read."""
     name = str(path)
     try:
-        text = p.read_text(encoding="utf-8")
+        return path.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise InputError(name, [InputProblem("", "no such file")]) from None
     except IsADirectoryError:
-        raise InputError(name, [InputProblem("", "is a directory, not a case file")]) from None
+        raise InputError(name, [InputProblem("", f"is a directory, not {what}")]) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(name, [InputProblem("", f"cannot be read: {exc}")]) from None
-    data = parse_text(text, name, p.suffix.lower())
-    return parse_case(data, name, p.parent)
 
 
 def parse_text(text: str, name: str, suffix: str) -> Any:

@@ -19,7 +19,7 @@ from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
-from commitadvisor.case import parse_text
+from commitadvisor.case import parse_text, read_input_text
 from commitadvisor.errors import InputError, InputProblem
 from commitadvisor.policy import (
     CASE_FIELDS,
@@ -303,17 +303,8 @@ def parse_policy(data: Any, file: str, is_baseline: bool = False) -> Policy:
 
 def load_policy(path: str | Path) -> Policy:
     """Read and validate one organisation rule file (TOML)."""
-    p = Path(path)
     name = str(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError(name, [InputProblem("", "no such file")]) from None
-    except IsADirectoryError:
-        raise InputError(name, [InputProblem("", "is a directory, not a rule file")]) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(name, [InputProblem("", f"cannot be read: {exc}")]) from None
-    return parse_policy(parse_text(text, name, ".toml"), name)
+    return parse_policy(parse_text(read_input_text(Path(path), "a rule file"), name, ".toml"), name)
 
 
 def baseline_text(repo_root: Path | None = None) -> str:
