@@ -27,17 +27,21 @@ def _v(x: float | None, unit: str = "") -> str:
 
 
 def _reported(r: BenchmarkReview) -> str:
+    text = (f"{_v(r.reported_commits_per_s)} commits/s at {_v(r.reported_mean_ms, 'ms')} mean"
+            + (f", p99 {_v(r.reported_p99_ms, 'ms')}" if r.reported_p99_ms else "")
+            + f", {r.sessions} sessions")
+    if r.duration_s:
+        text += f", {_v(r.duration_s, 's')} run"
+    return text
+
+
+def _mode(r: BenchmarkReview) -> str:
     mode = r.commit_mode + " commit"
     if r.commit_mode == "deferred":
         mode += f", flushed every {_v(r.flush_every_ms, 'ms')}"
         if r.buffer_bytes:
             mode += f", log buffer {r.buffer_bytes:,} bytes"
-    text = (f"{_v(r.reported_commits_per_s)} commits/s at {_v(r.reported_mean_ms, 'ms')} mean"
-            + (f", p99 {_v(r.reported_p99_ms, 'ms')}" if r.reported_p99_ms else "")
-            + f", {r.sessions} sessions, {mode}, on {r.device}")
-    if r.duration_s:
-        text += f", {_v(r.duration_s, 's')} run"
-    return text
+    return mode + f", on {r.device}"
 
 
 _DURABLE_HEAD = ("strategy", "regime", "commits/s", "mean ms", "p50 ms", "p99 ms", "p99.9 ms",
@@ -151,8 +155,10 @@ def _table(title: str, head: tuple[str, ...], rows: list[tuple[str, ...]],
 def render_review_text(console: Console, r: BenchmarkReview) -> None:
     """The review for a terminal: reported figures, durable figures, at-risk, bounds, verdict."""
     title = r.benchmark_title or "benchmark"
-    console.print(f"[bold]Benchmark review: {title}[/bold]  ({r.case_title})")
+    console.print(f"[bold]Benchmark review: {title}[/bold]")
+    console.print(f"Case: {r.case_title}")
     console.print(f"Reported: {_reported(r)}")
+    console.print(f"Commit mode: {_mode(r)}")
     console.print(f"Think time: {r.think.message}")
     console.print()
     console.print(_table("With durable commits: the same sessions, closed-workload model",
@@ -205,7 +211,8 @@ def review_markdown(r: BenchmarkReview) -> str:
     """The review as a Markdown section, ready to paste into a review document."""
     title = r.benchmark_title or "benchmark"
     lines = [f"## Benchmark review: {title}", "", f"Case: {r.case_title}", "",
-             f"Reported: {_reported(r)}.", "", f"Think time: {r.think.message}.", "",
+             f"Reported: {_reported(r)}.", "", f"Commit mode: {_mode(r)}.", "",
+             f"Think time: {r.think.message}.", "",
              "### With durable commits (the same sessions, closed-workload model)", ""]
     lines += _md_table(_DURABLE_HEAD, _durable_rows(r))
     lines += [""] + [f"- {n}" for n in _durable_notes(r)] + [""]
