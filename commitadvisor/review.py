@@ -285,8 +285,8 @@ def _durable_figure(kind: str, rr: RegimeResult, settings: str, source: str,
             f"{sessions} closed sessions cannot build a growing backlog: at most {sessions} "
             "commits are ever waiting, so the throughput is held at or below this ceiling "
             f"and the mean response is at least N/X - Z = {_n(law, 'ms')} (interactive "
-            "response time law); this model gives no percentiles here (for closed sessions "
-            "it evaluates open arrivals at an estimated rate): check it with the simulator")
+            "response time law); a saturated regime has no percentiles: check it with the "
+            "simulator")
     return DurableFigure(
         strategy=kind, settings=settings, settings_source=source, regime=rr.regime,
         time_share=rr.time_share, throughput_per_s=rr.throughput_per_s,
@@ -309,11 +309,20 @@ def deferred_at_risk(case: Case, ctx: RegimeContext) -> AtRisk:
     rate_per_s = b.reported_commits_per_s
     value, currency = case.recovery.value_per_commit, case.recovery.currency
     if b.commit_mode != "deferred":
-        return AtRisk(False, b.commit_mode, rate_per_s, None, None, None, None, 0.0, 0.0,
-                      0.0, 0.0, 0.0, None, None, 0.0, "acknowledged only after the flush",
-                      value, currency, *((0.0, 0.0, 0.0) if value else (None, None, None)),
-                      case.devices[b.device].counts_as_durable,
-                      rate_per_s * b.duration_s if b.duration_s else None, ())
+        durable = case.devices[b.device].counts_as_durable
+        zero = 0.0 if durable else None  # a device that does not count bounds nothing
+        return AtRisk(
+            applies=False, commit_mode=b.commit_mode, rate_per_s=rate_per_s,
+            flush_every_ms=None, flush_mean_ms=None, flush_p999_ms=None, cycle_ms=None,
+            host_window_mean_ms=zero, process_window_mean_ms=0.0, host_at_risk_mean=zero,
+            process_at_risk_mean=0.0, steady_peak=zero, buffer_bound=None,
+            buffer_fill_ms=None, at_most=zero,
+            at_most_basis="acknowledged only after the flush" if durable else
+            f"acknowledged after a flush of {b.device}, which does not count as durable",
+            value_per_commit=value, currency=currency,
+            value_at_most=zero if value else None, value_steady_peak=zero if value else None,
+            value_mean=zero if value else None, host_bounded=durable,
+            commits_in_run=rate_per_s * b.duration_s if b.duration_s else None, notes=())
     dev = ctx.devices[b.device]
     lam = rate_per_s / 1000.0
     interval = float(b.flush_every_ms)

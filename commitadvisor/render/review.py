@@ -83,8 +83,8 @@ def _risk_rows(r: BenchmarkReview) -> list[tuple[str, str, str]]:
     a = r.at_risk
     cur = a.currency or ""
     if not a.applies:
-        return [("acknowledged commits at risk", "0",
-                 f"{a.commit_mode} commit acknowledges only after the flush")]
+        return [("acknowledged commits at risk", "0" if a.host_bounded else "not bounded",
+                 f"{a.commit_mode} commit: {a.at_most_basis}")]
     rows = [
         ("flush time, mean (p99.9)", f"{_v(a.flush_mean_ms, 'ms')} ({_v(a.flush_p999_ms, 'ms')})",
          "a flush carrying one cycle's commits"),
