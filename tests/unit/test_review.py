@@ -322,6 +322,10 @@ def test_a_volatile_device_leaves_the_host_crash_loss_unbounded_and_says_so():
 def test_a_durable_benchmark_has_nothing_at_risk():
     a = at_risk_of(make_case(bench(1491.0, 3.41, 20)))
     assert not a.applies and a.at_most == 0.0 and a.host_at_risk_mean == 0.0
+    # ... unless its flushes do not count as durable: then nothing bounds a power loss
+    a = at_risk_of(make_case(bench(1491.0, 3.41, 20), cache="volatile"))
+    assert not a.host_bounded and a.at_most is None and a.host_at_risk_mean is None
+    assert "does not count as durable" in a.at_most_basis
 
 
 # --------------------------------------------------------------------------- verdict
