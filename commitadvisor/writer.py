@@ -261,3 +261,118 @@ def mmc_wait(servers: int, service_ms: float, rate_per_ms: float) -> L.Latency |
     tail = L.Exponential(1.0 / (servers / service_ms - rate_per_ms))
     return L.mixture([1 - c, c], [L.Fixed(0.0), tail]) if c > 1e-12 else L.Fixed(0.0)
 
+
+
+def _binomial_cdf_below(j: int, m: int, q: np.ndarray) -> np.ndarray:
+    """P(Binomial(m, q) < j) for each q."""
+    from scipy.special import bdtr
+
+    return bdtr(j - 1, m, q) if j > 0 else np.zeros_like(q)
+
+
+def closed_batched_commit(flush_for_batch, sessions: int, think_ms: float, window_ms: float,
+                          target: int) -> ClosedGroupCommit:
+    """Batched commit with N sessions and exponential think time Z: an embedded chain at
+    flush completions, extending the natural-group-commit chain with the gathering phase.
+
+    State b = commits pending when a flush completes. The writer then gathers until the
+    target is pending or the oldest pending commit's window runs out: with m = N - b
+    thinking sessions, the gathering adds a arrivals, a = j (the target's shortfall) when
+    they come before the window's rest W', else Binomial(m, 1 - exp(-W'/Z)) truncated below
+    j; its mean length is the integral over [0, W'] of P(Binomial(m, 1 - e^{-t/Z}) < j). The
+    flush then carries B = b + a and, as in the group-commit chain, the next state is
+    Binomial(N - B, 1 - exp(-S/Z)). The oldest pending commit's age at completion is taken
+    as E[S] b / (b + 1) (the first of b uniform arrivals in a flush): the one approximation.
+    X = E[B] / E[cycle] and R = N / X - Z (Little).
+    """
+    n, z = sessions, think_ms
+    if z <= 0:
+        # every session is always waiting: each flush carries all N commits, after the
+        # window when N is below the target
+        f = L.add_constant(flush_for_batch(n), 0.0 if n >= target else window_ms)
+        return ClosedGroupCommit(n / f.mean_ms, f, f.mean_ms, float(n), 1 / f.mean_ms,
+                                 flush_for_batch(n).mean_ms / f.mean_ms)
+    mean_s = flush_for_batch(target).mean_ms
+    rows = np.zeros((n + 1, n + 1))  # rows[B] = law of the next state after a flush of B
+    flush_mean = np.zeros(n + 1)
+    nodes: dict = {}
+    cache: dict = {}
+    for big_b in range(1, n + 1):
+        s, w = _quadrature(flush_for_batch(big_b), cache)
+        nodes[big_b] = (s, w)
+        k = np.arange(n - big_b + 1)
+        rows[big_b, : n - big_b + 1] = w @ _binomial_pmf(k, n - big_b, -np.expm1(-s / z))
+        flush_mean[big_b] = float(w @ s)
+    trans = np.zeros((n + 1, n + 1))
+    cycle = np.zeros(n + 1)
+    commits = np.zeros(n + 1)
+    gather_mean = np.zeros(n + 1)
+    arrivals_in_gather = np.zeros(n + 1)
+    for b in range(n + 1):
+        start = max(b, 1)
+        left = window_ms if b == 0 else max(0.0, window_ms - mean_s * b / (b + 1))
+        m = n - start
+        j = min(max(target - start, 0), m)
+        if j == 0 or left <= 0:
+            p_a = np.zeros(m + 1)
+            p_a[0] = 1.0
+            g = 0.0
+        else:
+            q = -np.expm1(-left / z)
+            p_a = np.zeros(m + 1)
+            p_a[:j] = _binomial_pmf(np.arange(j), m, np.array([q]))[0]
+            p_a[j] = max(0.0, 1.0 - p_a[:j].sum())
+            t = np.linspace(0.0, left, 65)
+            below = _binomial_cdf_below(j, m, -np.expm1(-t / z))
+            g = float(np.sum(np.diff(t) * (below[1:] + below[:-1]) / 2))
+        batch = start + np.arange(m + 1)
+        trans[b] = p_a @ rows[batch]
+        cycle[b] = (z / n if b == 0 else 0.0) + g + float(p_a @ flush_mean[batch])
+        commits[b] = float(p_a @ batch) if b > 0 else float(p_a @ batch)
+        gather_mean[b] = g
+        arrivals_in_gather[b] = float(p_a @ np.arange(m + 1))
+    a = trans.T - np.eye(n + 1)
+    a[-1] = 1.0
+    rhs = np.zeros(n + 1)
+    rhs[-1] = 1.0
+    pi_b = np.clip(np.linalg.solve(a, rhs), 0, None)
+    pi_b /= pi_b.sum()
+    # commits counted once: b pending were counted as the previous flush's arrivals
+    new_commits = (pi_b[0] * 1.0 + pi_b @ arrivals_in_gather
+                   + float(pi_b @ (trans @ np.arange(n + 1))))
+    x = new_commits / float(pi_b @ cycle)
+    mean_r = n / x - z
+    mean_batch = float(pi_b @ commits)
+    flushes = 1.0 / float(pi_b @ cycle)
+    busy = float(pi_b @ (cycle - gather_mean - np.where(np.arange(n + 1) == 0, z / n, 0.0))) \
+        * flushes
+    # response law: commits arriving during a flush wait what is left of it (arrival-weighted,
+    # as in the group-commit chain), the next gathering and the next flush; commits that
+    # start or join a gathering wait (part of) it and the flush.
+    g_typ = float(pi_b @ gather_mean)
+    next_flush = flush_for_batch(max(1, int(round(mean_batch))))
+    parts_w, parts_s = [], []
+    for b in range(n + 1):
+        start = max(b, 1)
+        s, w = nodes[start]
+        parts_w.append(pi_b[b] * w * (n - start) * -np.expm1(-s / z))
+        parts_s.append(s)
+    ws, ss = np.concatenate(parts_w), np.concatenate(parts_s)
+    w_gather = pi_b[0] + float(pi_b @ arrivals_in_gather)
+    if ws.sum() <= 0:
+        left_of_flush, share_flush = L.Fixed(0.0), 0.0
+    else:
+        left_of_flush = _time_left(ss, ws / ws.sum(), z)
+        share_flush = ws.sum() / (ws.sum() + w_gather)
+    # the gathering a commit sees is scaled so that the law's mean equals the chain's exact
+    # mean N/X - Z; only the split of that wait between gathering and flush is approximate
+    base = next_flush.mean_ms + share_flush * left_of_flush.mean_ms
+    g_eff = float(np.clip(mean_r - base, 0.0, 2 * max(g_typ, 0.0))) if g_typ > 0 else 0.0
+    after_gather = (L.convolve(L.Uniform0(2 * g_eff), next_flush) if g_eff > 0
+                    else next_flush)
+    if share_flush == 0:
+        response = after_gather
+    else:
+        during_flush = L.convolve(left_of_flush, L.add_constant(next_flush, g_eff))
+        response = L.mixture([1 - share_flush, share_flush], [after_gather, during_flush])
+    return ClosedGroupCommit(x, response, mean_r, mean_batch, flushes, busy)

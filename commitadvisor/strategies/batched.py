@@ -8,7 +8,7 @@ by an idle wait and a full gathering G = min(window, Gamma(target - 1, lambda));
 the next flush waits only what is left of the oldest pending commit's window, or nothing
 when the target is already reached (G'). By PASTA a commit arriving while idle waits G + S;
 one arriving during a gathering waits its equilibrium residual and S; one arriving during a
-flush waits the rest of the flush, G' and S.
+flush waits the rest of the flush, G' and S. Closed sessions use the chain of commitadvisor.writer.closed_batched_commit.
 """
 
 from __future__ import annotations
@@ -19,12 +19,12 @@ from typing import Any
 import numpy as np
 
 from commitadvisor import latency as L
+from commitadvisor import writer as W
 from commitadvisor.case import Case
 from commitadvisor.results import RegimeResult
-from commitadvisor.strategies.closed import CLOSED_NOTE, solve_closed_rate
 from commitadvisor.strategies.common import Partial, assemble, saturated_result, saturation
 from commitadvisor.strategies.context import RegimeContext, stall_mixture
-from commitadvisor.strategies.synchronous import device_exposures
+from commitadvisor.strategies.synchronous import closed_result, device_exposures
 
 __all__ = ["evaluate_regime", "Capped"]
 
@@ -67,8 +67,11 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
     lam = ctx.open_rate_per_ms
     notes = []
     if lam is None:
-        lam = _closed_rate(ctx, s, dev)
-        notes.append(CLOSED_NOTE)
+        def chain(think: float):
+            return W.closed_batched_commit(lambda b: dev.flush(b, ctx.log_bytes), ctx.sessions,
+                                           think, s.gather_window_ms, s.gather_target_commits)
+
+        return closed_result(ctx, dev, chain, device_exposures(dev))
     bw_cap = dev.bandwidth_bytes_per_ms / ctx.log_bytes
     if lam >= bw_cap:
         return saturated_result(ctx.regime, ctx.time_share, saturation(
@@ -128,28 +131,3 @@ def _cycle(dev, ctx: RegimeContext, lam: float, k: int, window: float):
     return gather, flush, p0, after, cycle, batch
 
 
-def _mean_wait(dev, ctx: RegimeContext, lam: float, k: int, window: float) -> float:
-    """Mean of the batched response law at rate lam, from means and second moments only."""
-    gather, flush, p0, after, cycle, _ = _cycle(dev, ctx, lam, k, window)
-    seen = _gather_after_flush(flush.second_moment_ms2 / flush.mean_ms, lam, k, window)
-
-    def resid(d: L.Latency) -> float:
-        return d.second_moment_ms2 / (2 * d.mean_ms) if d.mean_ms > 0 else 0.0
-
-    shares = np.array([p0 / lam, p0 * gather.mean_ms, (1 - p0) * after.mean_ms,
-                       flush.mean_ms]) / cycle
-    means = np.array([gather.mean_ms, resid(gather), resid(after), resid(flush) + seen.mean_ms])
-    return float(shares @ means) + flush.mean_ms
-
-
-def _closed_rate(ctx: RegimeContext, s, dev) -> float:
-    """Rate of N sessions under batched commit (see commitadvisor.strategies.closed)."""
-
-    def mean_response(x: float) -> float:
-        k, window = s.gather_target_commits, s.gather_window_ms
-        return ctx.cpu_mean_ms(x) + _mean_wait(dev, ctx, x, k, window)
-
-    cap = ctx.cpu_ceiling_per_ms(s.gather_target_commits, dev.overhead_ms)
-    bw = dev.bandwidth_bytes_per_ms / ctx.log_bytes
-    return solve_closed_rate(ctx.sessions, ctx.think_ms, mean_response,
-                             min(cap, bw) if cap is not None else bw)

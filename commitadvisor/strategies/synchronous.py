@@ -93,27 +93,33 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
 
 
 def _closed(case: Case, s, ctx: RegimeContext, dev: DeviceInRegime) -> RegimeResult:
-    n, z = ctx.sessions, ctx.think_ms
-    cpu_ms = ctx.cpu_ms_per_commit
-    notes = []
-    if ctx.think_fixed:
-        notes.append("fixed think time: evaluated with the exponential-think chain "
-                     "(approximation; check it with the simulator)")
+    n = ctx.sessions
 
     def chain(think: float):
         if s.grouping == "none":
             return _one_per_commit_closed(ctx, dev, n, think)
         return W.closed_group_commit(lambda b: dev.flush(b, ctx.log_bytes), n, think)
 
+    return closed_result(ctx, dev, chain, device_exposures(dev))
+
+
+def closed_result(ctx: RegimeContext, dev: DeviceInRegime, chain, exposures,
+                  notes: tuple[str, ...] = ()) -> RegimeResult:
+    """A closed workload's result from a writer chain ``chain(think_ms)``: the CPU station
+    enters by solving X (Z + R_writer + R_cpu(X)) = N below the CPU ceiling (interactive
+    response time law), then the chain runs once more with the CPU time added to the think
+    time."""
+    n, z = ctx.sessions, ctx.think_ms
+    cpu_ms = ctx.cpu_ms_per_commit
+    notes = list(notes)
+    if ctx.think_fixed:
+        notes.append("fixed think time: evaluated with the exponential-think chain "
+                     "(approximation; check it with the simulator)")
     res = chain(z + cpu_ms)
     x = res.throughput_per_ms
     cpu = L.Fixed(0.0)
     if ctx.cpus and cpu_ms > 0:
-        # sessions also queue for the CPU: solve X (Z + R_writer + R_cpu(X)) = N below the
-        # CPU ceiling (interactive response time law), then run the chain once more with
-        # the CPU time added to the think time
         cap = ctx.cpu_ceiling_per_ms(res.mean_batch, dev.overhead_ms)
-
         x = solve_closed_rate(n, z + res.mean_response_ms, ctx.cpu_mean_ms, cap)
         cpu = ctx.cpu_wait(x) or L.Fixed(0.0)
         res = chain(z + cpu.mean_ms)
@@ -129,7 +135,7 @@ def _closed(case: Case, s, ctx: RegimeContext, dev: DeviceInRegime) -> RegimeRes
         notes.append(f"{dev.name} is stalled {stalled:.1%} of the time; folded in as a "
                      "time-based event (quasi-static approximation)")
     return assemble(ctx.regime, ctx.time_share, Partial(
-        ack=ack, durable=ack, throughput_per_ms=x, exposures=device_exposures(dev),
+        ack=ack, durable=ack, throughput_per_ms=x, exposures=exposures,
         flushes_per_ms=((dev.name, res.flushes_per_ms),), mean_batch=res.mean_batch,
         writer_busy=res.writer_busy,
         cpu_busy=(x * cpu_ms / ctx.cpus) if ctx.cpus else None,

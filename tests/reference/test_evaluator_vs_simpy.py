@@ -116,3 +116,25 @@ def test_cpu_station_erlang_c():
                      commits=120_000, cpu_servers=2, cpu_ms_per_commit=R.exp_sampler(0.5))
     close(r.ack_mean_ms, sim.response_ms.mean(), MEAN_TOL)
     close(r.ack_p99_ms, np.quantile(sim.response_ms, 0.99), P99_TOL)
+
+
+@pytest.mark.parametrize("sessions, think, window, target", [(100, 2.76, 0.5, 16),
+                                                              (20, 5.0, 1.0, 8)])
+def test_batched_commit_closed_sessions_chain(sessions, think, window, target):
+    # a device with 3 % slow flushes: where the open-law fixed point read ~20 % high
+    mix = {"kind": "mixture", "parts": [
+        {"share": 0.97, "profile": {"kind": "lognormal", "p50_ms": 1.5, "p99_ms": 5.0}},
+        {"share": 0.03, "profile": {"kind": "lognormal", "p50_ms": 10.0, "p99_ms": 40.0}}]}
+    case = make_case(workload={"kind": "closed", "sessions": sessions, "think_time_ms": think,
+                               "log_bytes_per_commit": 100},
+                     device_a={"latency": {"normal": mix}},
+                     strategies=[{"kind": "batched", "device": "a", "gather_window_ms": window,
+                                  "gather_target_commits": target}])
+    r = evaluate(case).strategies[0].regimes[0]
+    sampler = R.mixture_sampler([(0.97, R.lognormal_sampler(1.5, 5.0)),
+                                 (0.03, R.lognormal_sampler(10.0, 40.0))])
+    sim = R.run_closed(sessions, think, flush_fn(sampler), mode="batched", seed=3,
+                       commits=80_000, gather_window_ms=window, gather_target=target)
+    close(r.throughput_per_s, sim.throughput_per_s, 0.03)
+    close(r.ack_mean_ms, sim.mean_response_ms, MEAN_TOL)
+    close(r.ack_p99_ms, np.quantile(sim.response_ms, 0.99), P99_TOL)
