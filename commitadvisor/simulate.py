@@ -15,13 +15,14 @@ Two modes:
 
 - **Steady segments** (always): each regime is simulated as its own steady state in many
   independent lanes (replications). Every lane starts empty at time 0 (device stalls start
-  in their own equilibrium), is warmed up for 10 relaxation scales (5 for closed sessions;
+  in their own equilibrium), is warmed up for 10 relaxation scales (20 for closed sessions;
   the scale is the slowest of the mean flush, the think time and a loaded queue's
   relaxation time) plus three gathering windows or flush intervals and one stall p99.9
   duration,
   and then measured over a window; the lanes' windows add up to about ``commits`` commits
   per regime (default 1,000,000) and, when the regime has stalls, to at least 500 stall
-  intervals per million commits requested (100 at least). A regime's figures come
+  intervals per million commits requested (20 at least), since a stalled regime's tail is
+  made by its stalls, not by its commits. A regime's figures come
   from the commits that ARRIVED in its measurement windows; per-time figures are over the
   same windows. A regime in which a resource's capacity is below the offered rate is
   reported saturated (resource, rate, backlog growth, drain time), not simulated.
@@ -71,7 +72,7 @@ __all__ = ["simulate_case", "Simulation", "WindowRow", "Segment", "DEFAULT_COMMI
 
 DEFAULT_COMMITS = 1_000_000
 _STALLS_PER_MILLION = 500  # stall intervals measured per million requested commits
-_WARM_SCALES = {"open": 10.0, "closed": 5.0}
+_WARM_SCALES = {"open": 10.0, "closed": 20.0}
 _MAX_LANES_OPEN = 4096
 _CLOSED_CELLS = 131_072  # lanes x sessions per step
 # Lanes: more lanes share each step's fixed cost, more warm-ups cost commits; the total
@@ -95,6 +96,7 @@ class WindowRow:
     regime: str
     commits: int
     throughput_per_s: float
+    ack_mean_ms: float | None
     ack_p50_ms: float | None
     ack_p99_ms: float | None
     exposure_p99_ms: float | None
@@ -312,7 +314,7 @@ def _steady(case, s, host, devices, devs, schedule: Schedule, r: int, reg: str, 
     stall_rate = max(d.stall_rate_per_ms[r] for d in devs)
     meas_total = target / max(rate_guess, 1e-12)
     if stall_rate > 0:
-        stalls = max(100.0, _STALLS_PER_MILLION * target / 1e6)
+        stalls = max(20.0, _STALLS_PER_MILLION * target / 1e6)
         meas_total = max(meas_total, stalls / stall_rate)
     if host.kind == "closed":
         max_lanes = max(8, min(_MAX_LANES_OPEN, _CLOSED_CELLS // host.sessions))
@@ -372,6 +374,7 @@ def _timeline(case, s, name, host, devices, devs, schedule: Schedule, duration_s
         rows.append(WindowRow(
             strategy=name, start_s=start / 1000.0, regime=schedule.name_at(start),
             commits=int(rec.arrivals[w]), throughput_per_s=float(rec.acks[w]) / length * 1000.0,
+            ack_mean_ms=float(rec.ack_sum_ms[w] / rec.arrivals[w]) if rec.arrivals[w] else None,
             ack_p50_ms=rec.quantile("ack", w, 0.5), ack_p99_ms=rec.quantile("ack", w, 0.99),
             exposure_p99_ms=rec.quantile("exposure", w, 0.99) if rec.exposure_known else None,
             flushes=int(rec.flushes[w])))

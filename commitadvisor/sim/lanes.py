@@ -173,61 +173,59 @@ class _Lanes:
 
 # --------------------------------------------------------------------------- open arrivals
 class _Buffer:
-    """Each lane's joins not yet resolved, in join order: a matrix whose row prefix of
-    ``n`` entries is valid; column 0 holds join number ``base``. ``known`` is the time up
-    to which every join of the lane is in the buffer."""
+    """Each lane's joins not yet resolved, in join order, stored flat (lane after lane,
+    ``off`` the row offsets): join number ``base`` of a lane sits at ``off[lane]``.
+    ``known`` is the time up to which every join of the lane is in the buffer."""
 
     def __init__(self, lanes: int, fields: tuple[str, ...], t0: np.ndarray):
-        self.data = {f: np.empty((lanes, 0)) for f in fields}
+        self.data = {f: np.empty(0) for f in fields}
         self.n = np.zeros(lanes, dtype=np.int64)
+        self.off = np.zeros(lanes + 1, dtype=np.int64)
         self.base = np.zeros(lanes, dtype=np.int64)
         self.known = t0.astype(float).copy()
         self.rows = np.arange(lanes)
-        self.width = 0
 
     def append(self, cols: dict[str, np.ndarray], keep_from: np.ndarray) -> None:
         """Drop every entry before join number ``keep_from`` and append the new joins
         (their rows are prefix-valid, padded with inf)."""
         drop = keep_from - self.base
         tail = self.n - drop
-        new_n = np.isfinite(cols["J"]).sum(axis=1)
-        width = int((tail + new_n).max(initial=0))
-        keep_w = int(tail.max(initial=0))
-        idx = np.minimum(drop[:, None] + np.arange(keep_w)[None, :],
-                         max(self.width - 1, 0))
-        col = np.arange(width)[None, :]
+        ok = np.isfinite(cols["J"])
+        new_n = ok.sum(axis=1)
+        n = tail + new_n
+        off = np.zeros(self.n.size + 1, dtype=np.int64)
+        np.cumsum(n, out=off[1:])
+        lanes_k, _, pos_k, _ = expand(self.rows, np.zeros_like(tail), tail)
+        src = self.off[lanes_k] + drop[lanes_k] + pos_k
+        dst_keep = off[lanes_k] + pos_k
+        lanes_new = np.broadcast_to(self.rows[:, None], ok.shape)[ok]
+        col_new = np.broadcast_to(np.arange(ok.shape[1])[None, :], ok.shape)[ok]
+        dst_new = off[lanes_new] + tail[lanes_new] + col_new
+        total = int(off[-1])
         for f, old in self.data.items():
-            kept = np.take_along_axis(old, idx, axis=1) if self.width else np.empty((
-                old.shape[0], 0))
-            out = np.full((old.shape[0], width), np.inf)
-            out[:, :keep_w] = kept
-            out[col >= tail[:, None]] = np.inf
+            out = np.empty(total)
+            out[dst_keep] = old[src]
             add = cols.get(f)
-            if add is not None and add.shape[1]:
-                # place each row's new joins right after its kept tail
-                pos = tail[:, None] + np.arange(add.shape[1])[None, :]
-                ok = np.isfinite(cols["J"]) & (pos < width)
-                out[np.broadcast_to(self.rows[:, None], pos.shape)[ok], pos[ok]] = add[ok]
+            out[dst_new] = add[ok] if add is not None else np.inf
             self.data[f] = out
         self.base = keep_from.copy()
-        self.n = tail + new_n
-        self.width = width
+        self.n = n
+        self.off = off
+        self.lane_of = np.repeat(self.rows, n)
         self._keys()
 
     def _keys(self) -> None:
         """One sorted flat array for every lane's search: row-relative join times, each
-        row shifted by its own span (precision: times stay below lanes x span)."""
+        row shifted by its own span (precision: values stay below lanes x span)."""
         j = self.data["J"]
-        valid = np.arange(self.width)[None, :] < self.n[:, None]
-        self.ref = np.where(self.n > 0, j[:, 0] if self.width else 0.0, 0.0)
-        rel = np.where(valid, j - self.ref[:, None], 0.0)
-        top = float(rel.max(initial=0.0))
-        self.span = 2.0 * top + 2.0
-        rel[~valid] = 0.75 * self.span
-        self.keys = (rel + (self.rows * self.span)[:, None]).ravel()
+        first = np.minimum(self.off[:-1], max(j.size - 1, 0))
+        self.ref = np.where(self.n > 0, j[first] if j.size else 0.0, 0.0)
+        rel = j - self.ref[self.lane_of]
+        self.span = 2.0 * float(rel.max(initial=0.0)) + 2.0
+        self.keys = rel + self.lane_of * self.span
 
     def count_upto(self, rows: np.ndarray, t: np.ndarray, frm: np.ndarray) -> np.ndarray:
-        """How many of each lane's buffered joins are at or before t (at least ``frm``):
+        """How many of each lane's buffered joins are at or before t (more than ``frm``):
         the next few entries are compared directly, a long run by one search."""
         # the entry at frm is due by construction; most batches end right after it
         cnt = frm + 1
@@ -236,27 +234,28 @@ class _Buffer:
             return cnt
         k = 8
         r, tm = rows[more], t[more]
-        cols = np.minimum(cnt[more][:, None] + np.arange(k)[None, :], self.width - 1)
-        j = self.data["J"].ravel()[(r * self.width)[:, None] + cols]
-        inside = (j <= tm[:, None]) & (cols < self.n[r, None])
+        pos = cnt[more][:, None] + np.arange(k)[None, :]
+        inside = pos < self.n[r, None]
+        idx = np.where(inside, self.off[r, None] + pos, 0)
+        inside &= self.data["J"][idx] <= tm[:, None]
         cnt[more] += inside.sum(axis=1)
         long = np.flatnonzero(inside[:, -1])
         if long.size:
             rl = r[long]
             q = np.clip(tm[long] - self.ref[rl], -1.0, 0.5 * self.span) + rl * self.span
-            cnt[more[long]] = np.searchsorted(self.keys, q, side="right") - rl * self.width
+            cnt[more[long]] = np.searchsorted(self.keys, q, side="right") - self.off[rl]
         return cnt
 
     def flat(self, lanes: np.ndarray, col: np.ndarray) -> np.ndarray:
-        return lanes * self.width + col
+        return self.off[lanes] + col
 
     def at(self, f: str, rows: np.ndarray, pos: np.ndarray) -> np.ndarray:
         """Field f at buffer positions (inf beyond a lane's valid entries)."""
         ok = pos < self.n[rows]
-        flat = rows * self.width + np.minimum(pos, max(self.width - 1, 0))
-        if self.width == 0:
+        arr = self.data[f]
+        if arr.size == 0:
             return np.full(rows.size, np.inf)
-        return np.where(ok, self.data[f].ravel()[flat], np.inf)
+        return np.where(ok, arr[np.where(ok, self.off[rows] + pos, 0)], np.inf)
 
 
 def run_open(strategy, host: HostParams, devices: list[DeviceParams], schedule: Schedule,
@@ -372,7 +371,7 @@ def _flushed(d, cols, w, buf, comb, recorder, nd, wake_ms, wake_c, total) -> Non
     col = buf.flat(lanes, k - buf.base[lanes])
     e = end[which]
     if w.mode == DEFERRED:
-        j = buf.data["J"].ravel()[col]
+        j = buf.data["J"][col]
         blocked = (k - w.cap) >= prev_lo[which]
         a = np.where(blocked, np.maximum(j, prev_e[which]), j)
     else:
@@ -380,11 +379,11 @@ def _flushed(d, cols, w, buf, comb, recorder, nd, wake_ms, wake_c, total) -> Non
     if nd == 1:
         ack, durable, safe = comb([start[which]], [e], [a])
         total[0] += int(lanes.size)
-        recorder.on_commits(lanes, buf.data["A"].ravel()[col], ack, durable, safe)
+        recorder.on_commits(lanes, buf.data["A"][col], ack, durable, safe)
         return
-    buf.data[f"G{d}"].ravel()[col] = start[which]
-    buf.data[f"e{d}"].ravel()[col] = e
-    buf.data[f"a{d}"].ravel()[col] = a
+    buf.data[f"G{d}"][col] = start[which]
+    buf.data[f"e{d}"][col] = e
+    buf.data[f"a{d}"][col] = a
 
 
 def _resolve_dual(buf, frm, top, comb, recorder, total) -> None:
@@ -392,12 +391,12 @@ def _resolve_dual(buf, frm, top, comb, recorder, total) -> None:
     if lanes.size == 0:
         return
     col = buf.flat(lanes, k - buf.base[lanes])
-    g = [buf.data[f"G{d}"].ravel()[col] for d in range(2)]
-    e = [buf.data[f"e{d}"].ravel()[col] for d in range(2)]
-    a = [buf.data[f"a{d}"].ravel()[col] for d in range(2)]
+    g = [buf.data[f"G{d}"][col] for d in range(2)]
+    e = [buf.data[f"e{d}"][col] for d in range(2)]
+    a = [buf.data[f"a{d}"][col] for d in range(2)]
     ack, durable, safe = comb(g, e, a)
     total[0] += int(lanes.size)
-    recorder.on_commits(lanes, buf.data["A"].ravel()[col], ack, durable, safe)
+    recorder.on_commits(lanes, buf.data["A"][col], ack, durable, safe)
 
 
 class _Cpu:
@@ -523,8 +522,10 @@ def run_closed(strategy, host: HostParams, devices: list[DeviceParams], schedule
     n, sessions = st.n, host.sessions
     z = host.think_ms or 0.0
     if host.think_fixed:
+        # all sessions start together, as the fixed-think model's own steady state has
+        # them: sessions acknowledged by one flush think alike and commit together again
         think = lambda k: np.full(k, z)  # noqa: E731
-        first = rng.random((n, sessions)) * z
+        first = np.full((n, sessions), z)
     else:
         think = lambda k: st.exp.take(k) * z  # noqa: E731
         first = rng.exponential(1.0, (n, sessions)) * z
@@ -550,7 +551,7 @@ def run_closed(strategy, host: HostParams, devices: list[DeviceParams], schedule
             g = np.minimum(g, g1)
         ev = np.minimum(ts, g)
         alive &= ~((ev >= m1) & (st.arrived == st.done))
-        closing = alive & (g <= ts)
+        closing = alive & (g < ts)  # a commit joining at the start time is in the batch
         sess = alive & ~closing & (ts < np.inf)
         if not (closing | sess)[alive].all():
             raise RuntimeError("simulator invariant broken: a live lane has no next event")
@@ -742,7 +743,7 @@ def run_measured_latency(host: HostParams, dev: DeviceParams, schedule: Schedule
     z = host.think_ms or 0.0
     lanes_m = np.broadcast_to(rows[:, None], (n, sessions)).ravel()
     if host.think_fixed:
-        nxt = (t_init[:, None] + rng.random((n, sessions)) * z).ravel()
+        nxt = (t_init[:, None] + np.full((n, sessions), z)).ravel()
     else:
         nxt = (t_init[:, None] + rng.exponential(1.0, (n, sessions)) * z).ravel()
     stop = np.repeat(np.maximum(m1, t_stop), sessions)

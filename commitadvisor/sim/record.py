@@ -222,6 +222,7 @@ class Series:
         self.ack = np.zeros(windows * nb, dtype=np.int64)
         self.exposure = np.zeros(windows * nb, dtype=np.int64)
         self.arrivals = np.zeros(windows, dtype=np.int64)
+        self.ack_sum_ms = np.zeros(windows)
         self.acks = np.zeros(windows, dtype=np.int64)
         self.flushes = np.zeros(windows, dtype=np.int64)
         self.exposure_known = True
@@ -244,6 +245,7 @@ class Series:
         a, k = arrival[m], ack[m]
         w = self._win(a)
         self.arrivals += np.bincount(w, minlength=self.n)
+        self.ack_sum_ms += np.bincount(w, weights=k - a, minlength=self.n)
         inside = k < self.n * self.window_ms
         self.acks += np.bincount(self._win(k[inside]), minlength=self.n)
         self.ack += np.bincount(w * self.nb + hist_bins(k - a, self.PER_DECADE),
