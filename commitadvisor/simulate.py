@@ -323,8 +323,11 @@ def _steady(case, s, host, devices, devs, schedule: Schedule, r: int, reg: str, 
     lanes = int(np.clip(math.sqrt(meas_total * _L0[host.kind] / warm), 4, max_lanes))
     lanes = int(min(lanes, max(4, meas_total // (0.25 * warm))))
     per_lane = meas_total / lanes
-    t_init = np.zeros(lanes)
-    m0 = np.full(lanes, warm)
+    # the deferred writer's ticks are fixed in time: each lane starts at its own random
+    # phase of the tick grid, or every window would sample the same phases of the cycle
+    phase = s.flush_every_ms if s.kind == "deferred" else 0.0
+    t_init = rng.random(lanes) * phase
+    m0 = t_init + warm
     m1 = m0 + per_lane
     t_stop = m1 + tail
     pinned = schedule.pinned(r)

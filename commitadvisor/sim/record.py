@@ -153,15 +153,19 @@ class Steady:
         self.lane_sum = np.zeros(t0.size)
 
     def on_flush(self, device: int, rows, start, end, batch) -> None:
-        inside = (start >= self.t0[rows]) & (start < self.t1[rows])
+        t0, t1 = self.t0[rows], self.t1[rows]
+        inside = (start >= t0) & (start < t1)
         if inside.any():
             self.flushes[device] += int(inside.sum())
             self.batch_sum[device] += float(batch[inside].sum())
-            self.busy_ms[device] += float((end[inside] - start[inside]).sum())
+        # busy time is the part of each flush inside the window (a share, never above 1)
+        self.busy_ms[device] += float(np.clip(np.minimum(end, t1) - np.maximum(start, t0),
+                                              0.0, None).sum())
 
     def on_cpu(self, rows, start, service) -> None:
-        inside = (start >= self.t0[rows]) & (start < self.t1[rows])
-        self.cpu_busy_ms += float(service[inside].sum())
+        t0, t1 = self.t0[rows], self.t1[rows]
+        self.cpu_busy_ms += float(np.clip(np.minimum(start + service, t1)
+                                          - np.maximum(start, t0), 0.0, None).sum())
 
     def on_commits(self, lanes, arrival, ack, durable, safe: dict) -> None:
         """``safe[kind]``: when each commit survives that failure (None: never bounded)."""
