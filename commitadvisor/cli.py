@@ -504,6 +504,109 @@ def _signoff_verification(c, ev, seed: int, no_verify: bool):
                         "into the sign-off")
 
 
+# --------------------------------------------------------------- the simulator
+_DURATION_UNITS = {"s": 1.0, "m": 60.0, "h": 3600.0}
+
+
+def _duration_s(option: str, text: str) -> float:
+    """Seconds from '90', '90s', '5m', '2h' or '1.5h'; exit status 2 on anything else."""
+    raw = text.strip().lower()
+    unit = raw[-1:] if raw[-1:] in _DURATION_UNITS else "s"
+    number = raw[:-1] if raw[-1:] in _DURATION_UNITS else raw
+    try:
+        value = float(number) * _DURATION_UNITS[unit]
+    except ValueError:
+        value = float("nan")
+    if not (value > 0 and value < float("inf")):
+        sys.stderr.write(f"{option}: '{text}' is not a duration; give a positive number with "
+                         "s, m or h (for example 90s, 5m, 2h)\n")
+        raise typer.Exit(EXIT_INPUT)
+    return value
+
+
+_SIMULATE_HELP = (
+    "Simulate the case commit by commit (the discrete-event check of 'evaluate').\n\n"
+    "Each regime is simulated as its own steady state (about --commits commits each), then "
+    "blended over the cycle; the table has the same columns as 'evaluate' (ms, commits/s). "
+    "A continuous timeline of --duration with the regimes switching at their times gives "
+    "per-window figures (a summary here, every window with --series). The seed is printed; "
+    "the same case and seed give the same output. Exit status 2 with one message on a bad "
+    "case or option."
+)
+
+
+@app.command("simulate", help=_SIMULATE_HELP)
+def simulate(
+    case: CaseArg,
+    duration: Annotated[str | None, typer.Option(
+        "--duration", help="Length of the continuous timeline, in seconds or with a unit: "
+                           "90s, 5m, 2h. Default: one cycle of the longest regime period "
+                           "(at most 2h), or 60s when the case has no regimes.",
+        show_default=False)] = None,
+    seed: Annotated[int, typer.Option("--seed", min=0, help="Seed of every random draw "
+                                      "(a non-negative integer).")] = 1,
+    window: Annotated[str, typer.Option(
+        "--window", help="Length of one window of the timeline, in seconds or with a unit "
+                         "(10s, 1m).")] = "10s",
+    series: Annotated[Path | None, typer.Option(
+        "--series", help="Write every window of the timeline to this CSV file (window "
+                         "start in s, latencies in ms, rates per second; replaced if it "
+                         "exists).")] = None,
+    commits: Annotated[int, typer.Option(
+        "--commits", min=1000, help="Commits measured per regime's steady segment; more "
+                                    "gives steadier p99.9 figures and takes longer.")
+    ] = 1_000_000,
+    fmt: Annotated[Fmt, typer.Option("--format", help="table: the tables; json: the "
+                                     "simulation document (evaluation, segments, series).")
+                   ] = Fmt.table,
+    no_color: NoColor = False,
+) -> None:
+    """Simulate a case; see _SIMULATE_HELP."""
+    window_s = _duration_s("--window", window)
+    if duration is not None:
+        duration_s = _duration_s("--duration", duration)
+    else:
+        duration_s = None
+    if series is not None and not series.parent.is_dir():
+        _fail_file(series, ValueError("its directory does not exist"))
+    c = _load(case)
+    if duration_s is None:
+        longest = max((r.period_s for r in c.regimes), default=None)
+        duration_s = min(longest, 7200.0) if longest else 60.0
+    if window_s > duration_s:
+        sys.stderr.write(f"--window ({window_s:g} s) is longer than --duration "
+                         f"({duration_s:g} s)\n")
+        raise typer.Exit(EXIT_INPUT)
+    from commitadvisor.render.console import make_console
+    from commitadvisor.render.simulate import series_csv, simulate_progress
+    from commitadvisor.simulate import simulate_case
+
+    try:
+        with simulate_progress(make_console(no_color, stderr=True)) as progress:
+            sim = simulate_case(c, seed=seed, duration_s=duration_s, commits=commits,
+                                window_s=window_s, progress=progress)
+    except ValueError as exc:
+        sys.stderr.write(f"{case}: {exc}\n")
+        raise typer.Exit(EXIT_INPUT) from None
+    if series is not None:
+        from commitadvisor.files import write_atomically
+
+        try:
+            write_atomically(series, series_csv(sim.series), force=True)
+        except OSError as exc:
+            _fail_file(series, ValueError(f"cannot be written: {exc.strerror or exc}"))
+    if fmt is Fmt.json:
+        from commitadvisor.render.simulate import simulation_json
+
+        sys.stdout.write(simulation_json(sim))
+        return
+    from commitadvisor.render.simulate import render_simulation
+
+    render_simulation(make_console(no_color), sim, c.goals.commit_p99_ms)
+    if series is not None:
+        typer.echo(f"wrote {series} ({len(sim.series)} windows)")
+
+
 def main() -> None:
     """Console-script entry point."""
     app()
