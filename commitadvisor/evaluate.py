@@ -104,8 +104,10 @@ def blend(case: Case, rs: tuple[RegimeResult, ...]) -> RegimeResult:
         regime="blended", time_share=1.0, commit_share=1.0, throughput_per_s=throughput,
         ack_mean_ms=ack.mean_ms, ack_p50_ms=q[0], ack_p90_ms=q[1], ack_p99_ms=q[2],
         ack_p999_ms=q[3],
-        durable_mean_ms=sum(r.commit_share * r.durable_mean_ms for r in rs),
-        durable_p99_ms=max(r.durable_p99_ms for r in rs),
+        durable_mean_ms=None if any(r.durable_mean_ms is None for r in rs)
+        else sum(r.commit_share * r.durable_mean_ms for r in rs),
+        durable_p99_ms=None if any(r.durable_p99_ms is None for r in rs)
+        else max(r.durable_p99_ms for r in rs),
         exposures=exposures, flushes_per_s=flushes,
         mean_batch_commits=tw("mean_batch_commits"), writer_utilisation=tw("writer_utilisation"),
         cpu_utilisation=tw("cpu_utilisation"), copies_at_ack=min(r.copies_at_ack for r in rs),

@@ -8,7 +8,8 @@ by an idle wait and a full gathering G = min(window, Gamma(target - 1, lambda));
 the next flush waits only what is left of the oldest pending commit's window, or nothing
 when the target is already reached (G'). By PASTA a commit arriving while idle waits G + S;
 one arriving during a gathering waits its equilibrium residual and S; one arriving during a
-flush waits the rest of the flush, G' and S. Closed sessions use the chain of commitadvisor.writer.closed_batched_commit.
+flush waits the rest of the flush, G' and S. Closed sessions use the chain of
+commitadvisor.writer.closed_batched_commit.
 """
 
 from __future__ import annotations
@@ -98,7 +99,8 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
                      "time-based event (quasi-static approximation)")
     ack = L.add_constant(L.convolve(cpu, resp), ctx.wake_cost(batch))
     return assemble(ctx.regime, ctx.time_share, Partial(
-        ack=ack, durable=ack, throughput_per_ms=lam, exposures=device_exposures(dev),
+        ack=ack, durable=ack if dev.device.counts_as_durable else None,
+        throughput_per_ms=lam, exposures=device_exposures(dev),
         flushes_per_ms=((dev.name, 1.0 / cycle),), mean_batch=batch,
         writer_busy=flush.mean_ms / cycle,
         cpu_busy=(lam * ctx.cpu_ms_per_commit / ctx.cpus) if ctx.cpus else None,

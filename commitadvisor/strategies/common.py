@@ -19,7 +19,7 @@ class Partial:
     """What a strategy computed for one regime, before the common figures are added."""
 
     ack: L.Latency
-    durable: L.Latency
+    durable: L.Latency | None  # None when no device the strategy uses counts as durable
     throughput_per_ms: float
     exposures: tuple[Exposure, ...]
     flushes_per_ms: tuple[tuple[str, float], ...]
@@ -95,7 +95,8 @@ def assemble(regime: str, time_share: float, p: Partial) -> RegimeResult:
         throughput_per_s=p.throughput_per_ms * 1000.0,
         ack_mean_ms=ack.mean_ms, ack_p50_ms=float(q[0]), ack_p90_ms=float(q[1]),
         ack_p99_ms=float(q[2]), ack_p999_ms=float(q[3]),
-        durable_mean_ms=p.durable.mean_ms, durable_p99_ms=float(p.durable.quantile(0.99)),
+        durable_mean_ms=p.durable.mean_ms if p.durable is not None else None,
+        durable_p99_ms=float(p.durable.quantile(0.99)) if p.durable is not None else None,
         exposures=p.exposures,
         flushes_per_s=tuple((d, f * 1000.0) for d, f in p.flushes_per_ms),
         mean_batch_commits=p.mean_batch, writer_utilisation=p.writer_busy,

@@ -91,7 +91,8 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
                   "it holds, until the log is archived or replicated elsewhere"),
     )
     return assemble(ctx.regime, ctx.time_share, Partial(
-        ack=ack, durable=L.convolve(ack, window_host), throughput_per_ms=lam,
+        ack=ack, durable=L.convolve(ack, window_host) if durable_ok else None,
+        throughput_per_ms=lam,
         exposures=exposures, flushes_per_ms=((dev.name, 1.0 / cycle),),
         mean_batch=lam * cycle, writer_busy=min(1.0, flush.mean_ms / cycle),
         cpu_busy=(lam * ctx.cpu_ms_per_commit / ctx.cpus) if ctx.cpus else None,

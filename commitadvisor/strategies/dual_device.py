@@ -117,7 +117,7 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
     else:
         dev_loss = unbounded("device_loss", "only one device counts as durable")
     return assemble(ctx.regime, ctx.time_share, Partial(
-        ack=ack, durable=ack, throughput_per_ms=lam,
+        ack=ack, durable=ack if copies else None, throughput_per_ms=lam,
         exposures=(safe("process_crash"), host, dev_loss), flushes_per_ms=tuple(flushes),
         mean_batch=batch_mean, writer_busy=busy,
         cpu_busy=(lam * ctx.cpu_ms_per_commit / ctx.cpus) if ctx.cpus else None,

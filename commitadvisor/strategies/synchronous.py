@@ -86,7 +86,8 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         notes.append(f"{dev.name} is stalled {stalled:.1%} of the time in this regime; the "
                      "stall is folded in as a time-based event (quasi-static approximation)")
     return assemble(ctx.regime, ctx.time_share, Partial(
-        ack=ack, durable=ack, throughput_per_ms=lam, exposures=device_exposures(dev),
+        ack=ack, durable=ack if dev.device.counts_as_durable else None,
+        throughput_per_ms=lam, exposures=device_exposures(dev),
         flushes_per_ms=((dev.name, flushes),), mean_batch=batch, writer_busy=busy,
         cpu_busy=(lam * ctx.cpu_ms_per_commit / ctx.cpus) if ctx.cpus else None,
         copies_at_ack=1 if dev.device.counts_as_durable else 0, notes=tuple(notes)))
@@ -135,7 +136,8 @@ def closed_result(ctx: RegimeContext, dev: DeviceInRegime, chain, exposures,
         notes.append(f"{dev.name} is stalled {stalled:.1%} of the time; folded in as a "
                      "time-based event (quasi-static approximation)")
     return assemble(ctx.regime, ctx.time_share, Partial(
-        ack=ack, durable=ack, throughput_per_ms=x, exposures=exposures,
+        ack=ack, durable=ack if dev.device.counts_as_durable else None,
+        throughput_per_ms=x, exposures=exposures,
         flushes_per_ms=((dev.name, res.flushes_per_ms),), mean_batch=res.mean_batch,
         writer_busy=res.writer_busy,
         cpu_busy=(x * cpu_ms / ctx.cpus) if ctx.cpus else None,
@@ -161,7 +163,8 @@ def _measured(case: Case, s, ctx: RegimeContext, dev: DeviceInRegime) -> RegimeR
     if rate is None:
         rate = ctx.sessions / (ctx.think_ms + dev.profile.mean_ms)
     return assemble(ctx.regime, ctx.time_share, Partial(
-        ack=dev.profile, durable=dev.profile, throughput_per_ms=rate,
+        ack=dev.profile,
+        durable=dev.profile if dev.device.counts_as_durable else None, throughput_per_ms=rate,
         exposures=device_exposures(dev), flushes_per_ms=(), mean_batch=None, writer_busy=None,
         cpu_busy=None, copies_at_ack=1 if dev.device.counts_as_durable else 0,
         notes=(f"{dev.name}'s profile is measured commit latency; used as the response time "
