@@ -479,7 +479,12 @@ def signoff(
 ) -> None:
     """Write a risk sign-off document; see _SIGNOFF_HELP."""
     from commitadvisor.files import write_atomically
-    from commitadvisor.signoff import PolicyFile, build_signoff, sha256_hex
+    from commitadvisor.signoff import (
+        PolicyFile,
+        best_durable_alternative,
+        build_signoff,
+        sha256_hex,
+    )
 
     c = _load(case)
     names = c.strategy_names()
@@ -506,7 +511,9 @@ def signoff(
         _fail(exc)
     ev = run(c)
     advice = build_advice(c, ev, policies, evaluate_stacks(c, ev.strategies))
-    verification = _signoff_verification(c, ev, seed, no_verify)
+    alt = best_durable_alternative(advice, strategy)
+    shown = (strategy,) if alt is None else (strategy, alt.name)
+    verification = _signoff_verification(c, ev, seed, no_verify, shown)
     doc = build_signoff(
         c, case_file=str(case), case_sha256=sha256_hex(case.read_bytes()), policies=files,
         tool_version=__version__, seed=seed, strategy=strategy, evaluation=ev, advice=advice,
@@ -523,19 +530,23 @@ def signoff(
     typer.echo(f"wrote {out}")
 
 
-def _signoff_verification(c, ev, seed: int, no_verify: bool):
-    """The simulator's check of the evaluation for the sign-off, or why there is none."""
-    from commitadvisor.signoff import Verification
+def _signoff_verification(c, ev, seed: int, no_verify: bool, names: tuple[str, ...]):
+    """The simulator's check of the figures of the strategies the sign-off shows (the chosen
+    one and its durable alternative), or a note that it was skipped."""
+    from dataclasses import replace
+
+    from commitadvisor.signoff import Verification, verification_from
+    from commitadvisor.simulate import simulate_case
+    from commitadvisor.verify import compare
 
     if no_verify:
         return Verification("skipped", seed)
-    import importlib.util
-
-    if importlib.util.find_spec("commitadvisor.verify") is None:
-        return Verification("unavailable", seed, summary="this version of commitadvisor has "
-                            "no simulator check (commitadvisor.verify)")
-    return Verification("unavailable", seed, summary="the simulator's check is not yet wired "
-                        "into the sign-off")
+    sub_case = c.model_copy(update={"strategies": tuple(
+        s for s, n in zip(c.strategies, c.strategy_names(), strict=True) if n in names)})
+    sub_ev = replace(ev, strategies=tuple(s for s in ev.strategies if s.name in names))
+    sys.stderr.write(f"checking {', '.join(names)} with the simulator (seed {seed}); this "
+                     "takes a while\n")
+    return verification_from(compare(sub_ev, simulate_case(sub_case, seed=seed).evaluation))
 
 
 # --------------------------------------------------------------- the simulator

@@ -15,6 +15,7 @@ from __future__ import annotations
 import hashlib
 import math
 from dataclasses import dataclass
+from typing import Any
 
 from commitadvisor.case import Case, regime_time_shares
 from commitadvisor.cautions import loss_regime
@@ -37,6 +38,7 @@ __all__ = [
     "DEFERRAL",
     "UnknownStrategy",
     "sha256_hex",
+    "verification_from",
     "best_durable_alternative",
     "build_signoff",
 ]
@@ -140,16 +142,25 @@ class VerifyRow:
     allowed: str  # the tolerance, in words
     flagged: bool
     note: str = ""
+    relative_difference: float | None = None  # (simulated - model) / |model|
 
 
 @dataclass(frozen=True)
 class Verification:
-    """The simulator's check of the figures: ``status`` is checked, skipped or unavailable."""
+    """The simulator's check of the figures: ``status`` is "checked" or "skipped"."""
 
     status: str
     seed: int | None
     rows: tuple[VerifyRow, ...] = ()
     summary: str = ""
+
+
+def verification_from(comparison: Any) -> Verification:
+    """The sign-off's view of a :class:`commitadvisor.verify.Comparison` (its rows, seed and
+    summary), every row kept."""
+    rows = tuple(VerifyRow(r.strategy, r.regime, r.figure, r.analytic, r.simulated, r.tolerance,
+                           r.flagged, r.note, r.relative_difference) for r in comparison.rows)
+    return Verification("checked", comparison.seed, rows, comparison.summary())
 
 
 def sha256_hex(data: bytes) -> str:
@@ -389,21 +400,29 @@ def _verification(v: Verification) -> Section:
             "Skipped (--no-verify): the figures above were NOT checked against the "
             "discrete-event simulator. Run the sign-off without --no-verify before relying "
             "on them."),), complete=False)
-    if v.status != "checked":
-        return Section("Check by simulation", (Paragraph(
-            "Not done: " + (v.summary or "the simulator's check is not available in this "
-                            "version of commitadvisor") + ". The figures above are NOT "
-            "checked against the simulator."),), complete=False)
-    rows = tuple((r.strategy, r.regime, r.figure, _num(r.model), _num(r.simulated), r.allowed,
-                  "FLAGGED" if r.flagged else "ok", r.note) for r in v.rows)
+
+    def row(r: VerifyRow) -> tuple[str, ...]:
+        diff = "-" if r.relative_difference is None else f"{100 * r.relative_difference:+.3g} %"
+        return (r.strategy, r.regime, r.figure, _num(r.model), _num(r.simulated), diff,
+                r.allowed, "FLAGGED" if r.flagged else "ok", r.note)
+
+    head = ("strategy", "regime", "figure", "model", "simulated", "difference",
+            "allowed difference", "result", "note")
     flagged = [r for r in v.rows if r.flagged]
-    head = (f"Checked against the discrete-event simulator with seed {v.seed}: "
-            + (f"{len(flagged)} of {len(v.rows)} figures FLAGGED (outside the allowed "
-               "difference)." if flagged else f"all {len(v.rows)} figures within the allowed "
-               "difference.") + (f" {v.summary}" if v.summary else ""))
-    return Section("Check by simulation", (Paragraph(head), Table(
-        ("strategy", "regime", "figure", "model", "simulated", "allowed difference", "result",
-         "note"), rows)))
+    counts = (f"{len(flagged)} of {len(v.rows)} figures FLAGGED (outside the allowed "
+              "difference)" if flagged else
+              f"all {len(v.rows)} figures within the allowed difference")
+    lead = f"Checked against the discrete-event simulator with seed {v.seed}: {counts}."
+    if v.summary:
+        lead += f" The check's own summary: {v.summary}."
+    blocks: list[Block] = [Paragraph(lead)]
+    if flagged:
+        blocks += [Paragraph("The flagged figures (read them before signing: the model and "
+                             "the simulator disagree there):"),
+                   Table(head, tuple(row(r) for r in flagged)),
+                   Paragraph("Every figure checked:")]
+    blocks.append(Table(head, tuple(row(r) for r in v.rows)))
+    return Section("Check by simulation", tuple(blocks))
 
 
 def _num(v: float | None) -> str:

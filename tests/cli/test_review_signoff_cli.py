@@ -179,16 +179,28 @@ def test_no_partial_file_when_the_write_fails(tmp_path, monkeypatch):
     assert list(tmp_path.iterdir()) == []  # neither the document nor its temporary file
 
 
-def test_signoff_without_no_verify_reports_the_simulator_check(tmp_path):
-    try:
-        import commitadvisor.verify  # noqa: F401
-    except ImportError:
-        r, out = _signoff(tmp_path)
-        assert r.exit_code == 0, r.output
-        md = out.read_text(encoding="utf-8")
-        assert "NOT checked against the simulator" in md and "Incomplete section" in md
-        return
-    pytest.skip("covered by the simulator check test once commitadvisor.verify exists")
+def test_signoff_checks_the_shown_strategies_with_the_simulator(tmp_path, monkeypatch):
+    import commitadvisor.simulate as simulate
+
+    real = simulate.simulate_case
+    calls = []
+
+    def small(case, *, seed, **kwargs):
+        # 10,000 commits per regime instead of the default million, to keep the test fast;
+        # the figures are then noisier, which this test does not judge
+        calls.append((case.strategy_names(), seed))
+        return real(case, seed=seed, commits=10_000)
+
+    monkeypatch.setattr(simulate, "simulate_case", small)
+    r, out = _signoff(tmp_path, "--seed", "3")
+    assert r.exit_code == 0, r.output
+    assert calls == [(("deferred_array", "dual_first"), 3)]  # the chosen and its alternative
+    md = out.read_text(encoding="utf-8")
+    section = md.split("## 7. Check by simulation")[1].split("## 8.")[0]
+    assert "Checked against the discrete-event simulator with seed 3" in section
+    assert "Incomplete section" not in section
+    for name in ("deferred_array", "dual_first"):
+        assert f"| {name} | normal | ack_p99_ms |" in section
 
 
 def test_signoff_with_a_missing_policy_file_exits_2(tmp_path):

@@ -193,9 +193,36 @@ def test_a_flagged_figure_of_the_simulator_check_is_shown(inputs):
     doc = build(inputs, "sync_array", Verification("checked", 11, rows))
     sec = doc.section("Check by simulation")
     assert sec.complete
-    table = next(b for b in sec.blocks if isinstance(b, Table))
-    assert [r[6] for r in table.rows] == ["ok", "FLAGGED"]
+    flagged_table, every = [b for b in sec.blocks if isinstance(b, Table)]
+    assert [r[7] for r in flagged_table.rows] == ["FLAGGED"]
+    assert [r[7] for r in every.rows] == ["ok", "FLAGGED"]
     assert "1 of 2 figures FLAGGED" in sec.blocks[0].text and "seed 11" in sec.blocks[0].text
+
+
+def test_a_real_comparison_is_carried_row_for_row(inputs):
+    from dataclasses import replace
+
+    from commitadvisor.signoff import verification_from
+    from commitadvisor.verify import compare
+
+    _, ev, _, _, _ = inputs
+    sub = replace(ev, strategies=tuple(s for s in ev.strategies if s.name == "sync_array"),
+                  seed=3)
+    same = compare(sub, sub)
+    v = verification_from(same)
+    assert v.status == "checked" and v.seed == 3 and len(v.rows) == len(same.rows)
+    assert not any(r.flagged for r in v.rows)
+    # a simulated p99 40 % above the model's must come out flagged, with its difference
+    sr = sub.strategies[0]
+    normal = sr.regimes[0]
+    moved = replace(sub, strategies=(replace(sr, regimes=(
+        replace(normal, ack_p99_ms=normal.ack_p99_ms * 1.4), *sr.regimes[1:])),))
+    v = verification_from(compare(sub, moved))
+    bad = [r for r in v.rows if r.flagged]
+    assert [(r.regime, r.figure) for r in bad] == [("normal", "ack_p99_ms")]
+    assert bad[0].relative_difference == pytest.approx(0.4)
+    md = _text(build(inputs, "sync_array", v))
+    assert "+40 %" in md and "FLAGGED" in md
 
 
 def test_unknown_strategy_lists_the_names(inputs):
