@@ -21,7 +21,7 @@ Two modes:
   duration,
   and then measured over a window; the lanes' windows add up to about ``commits`` commits
   per regime (default 1,000,000) and, when the regime has stalls, to at least 500 stall
-  intervals per million commits requested (20 at least), since a stalled regime's tail is
+  intervals per million commits requested (5 at least), since a stalled regime's tail is
   made by its stalls, not by its commits. A regime's figures come
   from the commits that ARRIVED in its measurement windows; per-time figures are over the
   same windows. A regime in which a resource's capacity is below the offered rate is
@@ -314,7 +314,7 @@ def _steady(case, s, host, devices, devs, schedule: Schedule, r: int, reg: str, 
     stall_rate = max(d.stall_rate_per_ms[r] for d in devs)
     meas_total = target / max(rate_guess, 1e-12)
     if stall_rate > 0:
-        stalls = max(20.0, _STALLS_PER_MILLION * target / 1e6)
+        stalls = max(5.0, _STALLS_PER_MILLION * target / 1e6)
         meas_total = max(meas_total, stalls / stall_rate)
     if host.kind == "closed":
         max_lanes = max(8, min(_MAX_LANES_OPEN, _CLOSED_CELLS // host.sessions))
@@ -350,7 +350,18 @@ def _timeline(case, s, name, host, devices, devs, schedule: Schedule, duration_s
     ids = range(len(schedule.names))
     warm_r = np.array([_warmup_ms(s, host, devices, r, _offered(host, r))[0] for r in ids])
     tail = max(_warmup_ms(s, host, devices, r, _offered(host, r))[1] for r in ids)
-    lanes = int(np.clip(total // (4.0 * warm_r[0]), 1, 512))
+    def warm_at(t: np.ndarray) -> np.ndarray:
+        # a segment's warm-up: the longest of the regimes in force during the longest
+        # warm-up before its start (a burst that just ended still needs its own warm-up)
+        look = t[:, None] - np.linspace(0.0, 1.0, 65)[None, :] * warm_r.max()
+        return warm_r[schedule.index(look)].max(axis=1)
+
+    # as for steady segments, the lane count that minimises the total work (each segment
+    # simulates its own warm-up before its start), with the warm-up a start needs on average
+    typical = float(warm_at(np.linspace(0.0, total, 1001)[:-1]).mean())
+    cap = 512 if host.kind == "open" else max(8, min(512, _CLOSED_CELLS // host.sessions))
+    lanes = int(np.clip(math.sqrt(total * _L0[host.kind] / typical), 1, cap))
+    lanes = int(min(lanes, max(1, total // (0.25 * typical))))
     bounds = np.linspace(0.0, total, lanes + 1)
     unsafe = _unsafe_intervals(case, results, schedule, total, float(warm_r.max()))
     cuts = [0.0]
@@ -362,10 +373,7 @@ def _timeline(case, s, name, host, devices, devs, schedule: Schedule, duration_s
     cuts.append(total)
     m0 = np.array(cuts[:-1])
     m1 = np.array(cuts[1:])
-    # each segment's warm-up: the longest of the regimes in force during the longest
-    # warm-up before its start (a burst that just ended still needs its own warm-up)
-    look = m0[:, None] - np.linspace(0.0, 1.0, 65)[None, :] * warm_r.max()
-    warm = warm_r[schedule.index(look)].max(axis=1)
+    warm = warm_at(m0)
     t_init = m0 - warm
     t_stop = m1 + tail
     rec = Series(m0, m1, window, windows)

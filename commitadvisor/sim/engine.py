@@ -108,8 +108,9 @@ class Stalls:
             reg = self.schedule.index(cur[todo])
             dead = self.rate[reg] <= 0
             if dead.any():
+                # no stall can start before the regime changes: go there (just past it)
                 jump = self.schedule.next_change(cur[todo[dead]])
-                cur[todo[dead]] = jump
+                cur[todo[dead]] = jump + 1e-6
                 todo = todo[np.isfinite(cur[todo])]
                 continue
             cand = cur[todo] + self._exp.take(todo.size) / self.rmax

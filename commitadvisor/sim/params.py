@@ -150,10 +150,11 @@ class Schedule:
             return out
         for p, d, o in zip(self.period_ms, self.duration_ms, self.offset_ms, strict=True):
             with np.errstate(invalid="ignore"):
-                phase = np.mod(t - o, p)
-            nxt = np.where(phase < d, t + (d - phase), t + (p - phase))
+                start = o + np.floor((t - o) / p) * p  # the period's start at or before t
+            nxt = np.where(t < start + d, start + d, start + p)
             out = np.minimum(out, nxt)
-        return out
+        # a boundary that rounding puts at or before t is stepped over (1 ns later)
+        return np.where(out > t, out, t + 1e-6)
 
     def name_at(self, t_ms: float) -> str:
         return self.names[int(self.index(np.array([t_ms]))[0])]
