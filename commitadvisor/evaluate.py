@@ -60,17 +60,29 @@ def _blend_exposure(case: Case, failure: str, rs: tuple[RegimeResult, ...]) -> E
     per_year = getattr(case.recovery, failure).per_year
     value = case.recovery.value_per_commit
     bounds = [e.at_risk_bound for e in es if e.at_risk_bound is not None]
+    if all(e.window is not None for e in es):
+        # per-commit figures: percentiles of the commit-weighted mixture of the windows
+        mixed = L.mixture([r.commit_share for r in rs], [e.window for e in es])
+        p99, p999 = (float(v) for v in mixed.quantile([0.99, 0.999]))
+        basis = ("window percentiles from the commit-weighted mixture of the regimes; "
+                 "at-risk mean time-weighted, its p99.9 the worst regime's")
+    else:
+        mixed = None
+        p99 = max(e.window_p99_ms for e in es)
+        p999 = max(e.window_p999_ms for e in es)
+        basis = "time-weighted mean over the regimes; percentiles are the worst regime's"
     return Exposure(
         failure=failure,
         window_mean_ms=sum(r.commit_share * e.window_mean_ms for r, e in zip(rs, es, strict=True)),
-        window_p99_ms=max(e.window_p99_ms for e in es),
-        window_p999_ms=max(e.window_p999_ms for e in es),
+        window_p99_ms=p99,
+        window_p999_ms=p999,
         at_risk_mean=at_risk,
         at_risk_p999=max(e.at_risk_p999 for e in es),
         at_risk_bound=max(bounds) if bounds else None,
         expected_lost_per_year=per_year * at_risk,
         value_lost_per_year=per_year * at_risk * value if value else None,
-        basis="time-weighted mean over the regimes; percentiles are the worst regime's",
+        basis=basis,
+        window=mixed,
     )
 
 

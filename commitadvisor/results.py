@@ -55,6 +55,7 @@ class Exposure:
     value_lost_per_year: float | None
     unbounded: bool = False
     basis: str = ""  # the law or measurement behind the figures
+    window: Any = field(default=None, repr=False, compare=False)  # its latency.Latency
 
     @property
     def can_lose(self) -> bool:
@@ -132,15 +133,16 @@ class Evaluation:
         return next(s for s in self.strategies if s.name == name)
 
 
+_DISTRIBUTIONS = {"ack_latency", "window"}  # distribution objects, not JSON figures
+
+
 def to_plain(obj: Any) -> Any:
     """A JSON-ready copy (distribution objects dropped, tuples as lists, floats rounded to
     9 significant figures so that output is stable byte for byte)."""
     if isinstance(obj, Evaluation | StrategyResult | RegimeResult | Exposure | Saturation):
-        d = asdict(obj)
-        d.pop("ack_latency", None)
-        return to_plain(d)
+        return to_plain(asdict(obj))
     if isinstance(obj, dict):
-        return {k: to_plain(v) for k, v in obj.items() if k != "ack_latency"}
+        return {k: to_plain(v) for k, v in obj.items() if k not in _DISTRIBUTIONS}
     if isinstance(obj, list | tuple):
         return [to_plain(v) for v in obj]
     if isinstance(obj, float):

@@ -80,7 +80,7 @@ def from_window(case: Case, failure: str, window: L.Latency, rate_per_ms: float,
     value = lost * case.recovery.value_per_commit if case.recovery.value_per_commit else None
     return Exposure(failure, window.mean_ms, float(window.quantile(0.99)),
                     float(window.quantile(0.999)), mean_at_risk, p999, bound, lost, value,
-                    False, basis)
+                    False, basis, window)
 
 
 def assemble(regime: str, time_share: float, p: Partial) -> RegimeResult:

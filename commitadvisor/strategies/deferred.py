@@ -73,6 +73,10 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         ) if d.upper_ms > fill_ms else 0.0
         window_host = L.mixture([1 - dev.stalled_share, dev.stalled_share],
                                 [window_host, L.convolve(L.residual(d), window_host)])
+        # a stall also holds back the start of the next flush, so what was acknowledged
+        # waits longer before it is handed to the operating system
+        to_start = L.mixture([1 - dev.stalled_share, dev.stalled_share],
+                             [to_start, L.convolve(L.residual(d), to_start)])
         if blocked_share > 0:
             ack = L.mixture([1 - blocked_share, blocked_share],
                             [cpu, L.convolve(cpu, L.residual(d))])
