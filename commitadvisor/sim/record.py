@@ -84,51 +84,46 @@ class LogHist:
 
 
 class Probes:
-    """At-risk counts at stratified random instants of each lane's window [t0, t1)."""
+    """At-risk counts at stratified random instants of each lane's window [t0, t1): probe k
+    of a lane is at t0 + (k + u_k) x step, u_k uniform. A commit at risk over [start, end)
+    is counted by every probe in that span: the count at probe k is the number of starts
+    at or before it minus the number of ends at or before it, so each commit adds +1 at
+    the first probe after its start and -1 at the first probe after its end."""
 
     def __init__(self, t0: np.ndarray, t1: np.ndarray, per_lane: int,
-                 rng: np.random.Generator):
+                 rng: np.random.Generator, u: np.ndarray | None = None):
         self.t0 = t0
         self.k = per_lane
         self.step = (t1 - t0) / per_lane
         self.lanes = t0.size
-        self.u = rng.random((self.lanes, per_lane))
-        self.diff = np.zeros(self.lanes * (per_lane + 1), dtype=np.int64)
-        self.point = np.zeros(self.lanes * per_lane, dtype=np.int64)
+        self.u = rng.random((self.lanes, per_lane)) if u is None else u
+        self._u = self.u.ravel()
+        self.steps = np.zeros(self.lanes * (per_lane + 1), dtype=np.int64)
 
-    def add(self, lanes: np.ndarray, start_ms: np.ndarray, end_ms: np.ndarray) -> None:
-        """Count each commit as at risk over [start, end)."""
-        t0 = self.t0[lanes]
-        step = self.step[lanes]
-        xa = np.maximum(start_ms - t0, 0.0) / step
-        xs = np.minimum(end_ms - t0, step * self.k) / step
-        keep = xs > xa
-        if not keep.any():
-            return
-        lanes, xa, xs = lanes[keep], xa[keep], xs[keep]
-        ka = np.floor(xa).astype(np.int64)
-        ks = np.floor(xs).astype(np.int64)
+    def slot(self, lanes: np.ndarray, t_ms: np.ndarray) -> np.ndarray:
+        """Flat index (lane, first probe at or after t); the slot past the last probe when
+        t is after them all."""
         k = self.k
-        inner = ks > ka + 1
-        if inner.any():
-            base = lanes[inner] * (k + 1)
-            self.diff += np.bincount(base + ka[inner] + 1, minlength=self.diff.size)
-            self.diff -= np.bincount(base + ks[inner], minlength=self.diff.size)
-        u = self.u.ravel()
-        row = lanes * k
-        ka_c = np.minimum(ka, k - 1)
-        ua = u[row + ka_c] + ka_c
-        first = (ka < k) & (ua >= xa) & ((ks > ka) | (ua < xs))
-        last_k = np.minimum(ks, k - 1)
-        ub = u[row + last_k] + last_k
-        last = (ks > ka) & (ks < k) & (ub < xs)
-        idx = np.concatenate([row[first] + ka[first], row[last] + ks[last]])
-        if idx.size:
-            self.point += np.bincount(idx, minlength=self.point.size)
+        x = (t_ms - self.t0[lanes]) / self.step[lanes]
+        j = np.clip(np.floor(x), 0, k).astype(np.int64)
+        inside = j < k
+        jj = np.minimum(j, k - 1)
+        # probe j itself is before t: the first probe at or after t is the next one
+        j += inside & (self._u[lanes * k + jj] + jj < x)
+        return lanes * (k + 1) + j
+
+    def add(self, lanes: np.ndarray, start_ms: np.ndarray, end_ms: np.ndarray,
+            start_slot: np.ndarray | None = None) -> None:
+        """Count each commit as at risk over [start, end) (an empty span counts nothing)."""
+        a = self.slot(lanes, start_ms) if start_slot is None else start_slot
+        b = self.slot(lanes, np.maximum(end_ms, start_ms))
+        n = self.steps.size
+        self.steps += np.bincount(a, minlength=n)
+        self.steps -= np.bincount(b, minlength=n)
 
     def values(self) -> np.ndarray:
-        d = self.diff.reshape(self.lanes, self.k + 1)
-        return (np.cumsum(d, axis=1)[:, :self.k] + self.point.reshape(self.lanes, self.k)).ravel()
+        d = self.steps.reshape(self.lanes, self.k + 1)
+        return np.cumsum(d, axis=1)[:, :self.k].ravel()
 
 
 class Steady:
@@ -142,7 +137,8 @@ class Steady:
         self.durable = LogHist()
         self.window = {k: LogHist() for k in KINDS}
         per_lane = int(np.clip(probes // t0.size, 16, 4096))
-        self.probes = {k: Probes(t0, t1, per_lane, rng) for k in kinds_probed}
+        u = rng.random((t0.size, per_lane))  # the same instants for every failure kind
+        self.probes = {k: Probes(t0, t1, per_lane, rng, u) for k in kinds_probed}
         self.flushes = np.zeros(devices, dtype=np.int64)
         self.batch_sum = np.zeros(devices)
         self.busy_ms = np.zeros(devices)
@@ -184,6 +180,7 @@ class Steady:
             h.sum_ms = self.ack.sum_ms
         elif durable is not None:
             self.durable.add((durable - arrival)[m])
+        ack_slot = None
         for kind, s in safe.items():
             if s is None:
                 continue
@@ -195,7 +192,10 @@ class Steady:
                 continue
             self.window[kind].add(np.maximum(s - ack, 0.0)[m])
             if kind in self.probes:
-                self.probes[kind].add(lanes, ack, s)
+                p = self.probes[kind]
+                if ack_slot is None:  # every probed kind shares the instants
+                    ack_slot = p.slot(lanes, ack)
+                p.add(lanes, ack, s, ack_slot)
 
 
 def ratio_se(sums: np.ndarray, counts: np.ndarray) -> float | None:
