@@ -586,8 +586,17 @@ def run_closed(strategy, host: HostParams, devices: list[DeviceParams], schedule
                     phase[r_t, s_t] = CPU
                     recorder.on_cpu(r_t, start, svc)
                 jn = ~th
-                if jn.any():
-                    _closed_join(st, rows[jn], sid[jn], t[jn], due, phase, a_cur, think, cap)
+                jr, js, jt = rows[jn], sid[jn], t[jn]
+                if r_t.size:
+                    # a commit leaving the CPU before any other event of its lane joins
+                    # the writer in the same step (one step fewer per commit)
+                    now = (fin <= due[r_t].min(axis=1)) & (fin <= g[r_t])
+                    if now.any():
+                        jr = np.concatenate([jr, r_t[now]])
+                        js = np.concatenate([js, s_t[now]])
+                        jt = np.concatenate([jt, fin[now]])
+                if jr.size:
+                    _closed_join(st, jr, js, jt, due, phase, a_cur, think, cap)
             else:
                 _closed_join(st, rows, sid, t, due, phase, a_cur, think, cap)
         steps += 1
