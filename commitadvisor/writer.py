@@ -158,13 +158,7 @@ def closed_group_commit(flush_for_batch, sessions: int, think_ms: float) -> Clos
     cycle[0] = think_ms / n + cycle[1]
     commits = np.arange(n + 1, dtype=float)
     commits[0] = 1.0
-    # stationary law of the batch-size chain
-    a = trans.T - np.eye(n + 1)
-    a[-1] = 1.0
-    rhs = np.zeros(n + 1)
-    rhs[-1] = 1.0
-    pi_b = np.clip(np.linalg.solve(a, rhs), 0, None)
-    pi_b /= pi_b.sum()
+    pi_b = _stationary(trans)
     x = float(pi_b @ commits) / float(pi_b @ cycle)
     mean_r = n / x - think_ms
     busy = float(pi_b @ (cycle - np.where(np.arange(n + 1) == 0, think_ms / n, 0.0))) / float(
@@ -191,6 +185,17 @@ def closed_group_commit(flush_for_batch, sessions: int, think_ms: float) -> Clos
         response = L.mixture([w_idle / total, ws.sum() / total],
                              [flush_for_batch(1), L.convolve(left, next_flush)])
     return ClosedGroupCommit(x, response, mean_r, mean_batch, float(1 / (pi_b @ cycle)), busy)
+
+
+def _stationary(trans: np.ndarray) -> np.ndarray:
+    """Stationary law of a finite Markov chain: pi P = pi, sum pi = 1 (one linear solve)."""
+    size = trans.shape[0]
+    a = trans.T - np.eye(size)
+    a[-1] = 1.0
+    rhs = np.zeros(size)
+    rhs[-1] = 1.0
+    pi = np.clip(np.linalg.solve(a, rhs), 0, None)
+    return pi / pi.sum()
 
 
 def _binomial_pmf(k: np.ndarray, n: int, p: np.ndarray) -> np.ndarray:
@@ -331,12 +336,7 @@ def closed_batched_commit(flush_for_batch, sessions: int, think_ms: float, windo
         commits[b] = float(p_a @ batch) if b > 0 else float(p_a @ batch)
         gather_mean[b] = g
         arrivals_in_gather[b] = float(p_a @ np.arange(m + 1))
-    a = trans.T - np.eye(n + 1)
-    a[-1] = 1.0
-    rhs = np.zeros(n + 1)
-    rhs[-1] = 1.0
-    pi_b = np.clip(np.linalg.solve(a, rhs), 0, None)
-    pi_b /= pi_b.sum()
+    pi_b = _stationary(trans)
     # commits counted once: b pending were counted as the previous flush's arrivals
     new_commits = (pi_b[0] * 1.0 + pi_b @ arrivals_in_gather
                    + float(pi_b @ (trans @ np.arange(n + 1))))
