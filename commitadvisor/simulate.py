@@ -14,33 +14,49 @@ The device's shared-cause share is not simulated (two devices stall independentl
 Two modes:
 
 - **Steady segments** (always): each regime is simulated as its own steady state in many
-  independent lanes (replications). Every lane starts empty at time 0 (device stalls start
-  in their own equilibrium), is warmed up for 10 relaxation scales (20 for closed sessions;
-  the scale is the slowest of the mean flush, the think time and a loaded queue's
-  relaxation time) plus three gathering windows or flush intervals and one stall p99.9
-  duration,
-  and then measured over a window; the lanes' windows add up to about ``commits`` commits
-  per regime (default 1,000,000) and, when the regime has stalls, to at least 500 stall
-  intervals per million commits requested (5 at least), since a stalled regime's tail is
-  made by its stalls, not by its commits. A regime's figures come
-  from the commits that ARRIVED in its measurement windows; per-time figures are over the
-  same windows. A regime in which a resource's capacity is below the offered rate is
-  reported saturated (resource, rate, backlog growth, drain time), not simulated.
+  independent lanes (replications). Every lane starts empty (device stalls start in their
+  own equilibrium; a deferred lane at a random phase of the tick grid), is warmed up for 10
+  relaxation scales (20 for closed sessions; the scale is the slowest of the mean flush,
+  the think time and a loaded queue's relaxation time) plus three gathering windows or
+  flush intervals and one stall p99.9 duration, and is then measured over a window. The
+  lanes' windows add up to about ``commits`` commits per regime (default 1,000,000) and,
+  when the regime has stalls, to at least 500 stall intervals per million commits
+  requested (5 at least), since a stalled regime's tail is made by its stalls, not by its
+  commits. A regime's figures come from the commits that ARRIVED in its measurement
+  windows; per-time figures are over the same windows. Lanes are independent, so each
+  segment also reports the standard error of its ack mean (``Segment.ack_mean_se_ms``) and
+  of its at-risk means. A regime in which a resource's capacity is below the offered rate
+  is reported saturated (resource, rate, backlog growth, drain time), not simulated.
 - **Continuous timeline** (when ``duration_s`` is given): the timeline [0, duration) with
   the regimes switching at their periods and offsets, cut into consecutive segments run as
-  lanes; each segment starts empty one warm-up before its start (its warm-up is simulated
-  with the real schedule) and segment starts are moved out of saturated regimes and their
-  drain, so a backlog is never cut. This gives the per-window series.
+  lanes; each segment starts empty one warm-up before its start (the warm-up of the
+  regimes in force shortly before, simulated with the real schedule), and segment starts
+  are moved out of saturated regimes and their drain, so a backlog is never cut. This
+  gives the per-window series.
 
-Why it is fast: a plain loop over events costs about a microsecond of interpreter time per
-event. Here one numpy step advances every lane (hundreds to thousands of them) by one
-commit, so the interpreter's cost is shared by all lanes; arrivals, service and flush times
-are drawn in blocks, and per-commit results are gathered in bulk once a lane's flushes are
-known. What limits the speed is the number of numpy calls per step (about 30, each with a
-fixed cost of about a microsecond plus the lane count times a nanosecond): steps are
-sequential, so a case with few lanes (long warm-ups, few sessions) or many flushes per
-commit runs slower. Memory is bounded by the histograms (log-spaced, 200 bins per decade),
-the at-risk probes and the ring of commits not yet flushed, not by the number of commits.
+Figures as defined here (where a definition had to be chosen): the wake order within a
+batch is join order; a dual-device strategy's mean batch and writer utilisation are the
+larger of its two devices'; CPU utilisation is the share of the cpus' time taken by commit
+work (dilated by the other work), not counting the writer's own; the blend's percentiles
+(exposure windows and durable p99 included) come from the pooled commits.
+
+Why it is fast, and what limits it. An interpreted loop costs about a microsecond per
+event. Here one numpy step advances every lane at once (hundreds to thousands of lanes):
+with open arrivals one step starts one flush in every lane whose next flush is already
+decided, and a single search over all lanes' buffered joins finds what each flush carries,
+so a deferred or bursty writer costs a step per flush, not per commit; with closed
+sessions one step handles the next event of every lane (a think time ending, the CPU done,
+a flush starting). Arrivals, service and flush times are drawn in blocks, and per-commit
+results are gathered in bulk when a lane's flushes are known. The limit is the fixed cost
+of the 30 to 60 numpy calls of a step (a few microseconds each) shared by the lanes, so
+speed falls with fewer lanes: long warm-ups (stalls, long flush intervals) or many sessions
+per lane. The open CPU station is a sequential recursion over each lane's arrivals (one
+step per arrival of every lane) and costs about as much as the writer. Measured on the
+shipped ledger case (tests/benchmarks/bench_simulator.py): about 1 to 3 million commits
+per CPU second per strategy in open workloads; closed sessions with a CPU station run at a
+few hundred thousand. Memory is bounded by the histograms (log-spaced, 200 bins per
+decade), at most 2^20 at-risk probes and the buffer of commits not yet flushed, not by the
+number of commits: about 450 MiB at most for ten million commits.
 """
 
 from __future__ import annotations
