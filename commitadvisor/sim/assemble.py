@@ -123,7 +123,7 @@ def _exposure(kind: str, counts, mean, probe, fig: Figures, basis: str) -> Expos
     lost = per_year * at_risk
     value = lost * fig.value_per_commit if fig.value_per_commit else None
     return Exposure(kind, mean, _q(counts, 0.99), _q(counts, 0.999), at_risk, p999, bound,
-                    lost, value, False, basis)
+                    lost, value, False, basis, window=_grid_latency(counts, mean))
 
 
 def regime_result(m: Measured, fig: Figures, notes: tuple[str, ...]) -> RegimeResult:
@@ -243,7 +243,8 @@ def blend(rs: list[RegimeResult], ms: list[Measured | None], fig: Figures) -> Re
             k, wmean([e.window_mean_ms for e in es]), _q(counts, 0.99), _q(counts, 0.999),
             at_risk, p999, es[0].at_risk_bound, lost,
             lost * fig.value_per_commit if (lost is not None and fig.value_per_commit) else None,
-            False, "simulated: pooled commits of all regimes; at risk by time share"))
+            False, "simulated: pooled commits of all regimes; at risk by time share",
+            window=_grid_latency(counts, wmean([e.window_mean_ms for e in es]))))
     devices = fig.devices
     flushes = tuple((d, sum(r.time_share * dict(r.flushes_per_s).get(d, 0.0) for r in rs))
                     for d in devices)
