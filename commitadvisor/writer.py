@@ -238,11 +238,6 @@ def _time_left(s: np.ndarray, w: np.ndarray, think_ms: float) -> L.GridLatency:
     return L.GridLatency(x, c, mean, second, 0.0, "time left of the flush in progress")
 
 
-def little_mean_check(x_per_ms: float, sessions: int, think_ms: float) -> float:
-    """Interactive response time law R = N/X - Z (Little's law on the closed loop)."""
-    return sessions / x_per_ms - think_ms
-
-
 def erlang_c(servers: int, offered: float) -> float:
     """Erlang's C formula: chance that an arrival waits in an M/M/c queue (offered = lambda/mu).
 

@@ -238,7 +238,7 @@ class Writer:
         if self.mode in (NATURAL, ONE_PER_COMMIT):
             return np.maximum(e, f)
         if self.mode == BATCHED:
-            return np.maximum(e, np.minimum(np.maximum(e, f) + self.window_ms, jt))
+            return np.maximum(e, np.minimum(f + self.window_ms, jt))
         every = self.every_ms
         owed = (np.floor(g / every) + 1.0) * every <= e
         nxt = np.ceil(np.maximum(f, e) / every) * every
@@ -264,23 +264,28 @@ class Writer:
         if self.mode == BATCHED:
             self.jt[sel] = np.where(nj - hi == self.target, join_ms, self.jt[sel])
 
+    def _work(self, count: int, start: np.ndarray, batch: np.ndarray) -> np.ndarray:
+        """Device time of ``count`` flushes starting at ``start``: the regime's latency, the
+        transfer beyond the profiled block, and the writer's per-flush work (ms)."""
+        if self.fixed is not None:
+            r = self.fixed
+            work = self._lat[r].take(count).copy()
+            if int(batch.max(initial=0)) * self.log_bytes > self.dev.block_bytes:
+                work += np.maximum(0.0, batch * self.log_bytes - self.dev.block_bytes) / self.bw[r]
+            if self.overhead[r]:
+                work += self.overhead[r]
+            return work
+        reg = self.schedule.index(start)
+        work = self._latency(reg, count)
+        extra = np.maximum(0.0, batch * self.log_bytes - self.dev.block_bytes)
+        return work + extra / self.bw[reg] + self.overhead[reg]
+
     def flush_at(self, rows: np.ndarray, start: np.ndarray, lo: np.ndarray,
                  hi: np.ndarray) -> np.ndarray:
         """Start flushes carrying join numbers [lo, hi) at ``start`` in the listed lanes
         (the caller has decided both); returns their ends."""
         batch = hi - lo
-        if self.fixed is not None:
-            r = self.fixed
-            work = self._lat[r].take(rows.size).copy()
-            if int(batch.max(initial=0)) * self.log_bytes > self.dev.block_bytes:
-                work += np.maximum(0.0, batch * self.log_bytes - self.dev.block_bytes) / self.bw[r]
-            if self.overhead[r]:
-                work += self.overhead[r]
-        else:
-            reg = self.schedule.index(start)
-            work = self._latency(reg, rows.size)
-            extra = np.maximum(0.0, batch * self.log_bytes - self.dev.block_bytes)
-            work += extra / self.bw[reg] + self.overhead[reg]
+        work = self._work(rows.size, start, batch)
         end = self.stalls.finish(rows, start, work)
         prev_lo = self.lo[rows]
         prev_e = self.e[rows]
@@ -314,18 +319,7 @@ class Writer:
         else:
             hi = nj.copy()
         batch = hi - lo
-        if self.fixed is not None:
-            r = self.fixed
-            work = self._lat[r].take(rows.size).copy()
-            if int(batch.max(initial=0)) * self.log_bytes > self.dev.block_bytes:
-                work += np.maximum(0.0, batch * self.log_bytes - self.dev.block_bytes) / self.bw[r]
-            if self.overhead[r]:
-                work += self.overhead[r]
-        else:
-            reg = self.schedule.index(start)
-            work = self._latency(reg, rows.size)
-            extra = np.maximum(0.0, batch * self.log_bytes - self.dev.block_bytes)
-            work += extra / self.bw[reg] + self.overhead[reg]
+        work = self._work(rows.size, start, batch)
         end = self.stalls.finish(rows, start, work)
         if mode == DEFERRED:
             prev_lo = self.lo[sel].copy()
