@@ -3,13 +3,13 @@
 It implements the system model the analytic evaluator shares, commit by commit: Poisson
 arrivals or closed sessions (exponential or fixed think time), the host's CPU station (c
 FIFO servers, exponential work dilated by the other work), the log writer of each strategy
-(natural group commit, one flush per commit, batched with its gathering window counted
-from the oldest pending commit's arrival, even during the previous flush; deferred with
-timer ticks at k x interval and its buffer bound, two devices each with its own natural
-writer), flush time = device draw + transfer beyond the profiled block + the writer's CPU
-and hand-over + stall delay, time-based device stalls (one that would start during a stall is dropped),
-wake costs (the k-th woken commit waits ceil(k / cpus) wake costs), and regimes in time.
-The device's shared-cause share is not simulated (two devices stall independently).
+(natural group commit, one flush per commit, batched with its gathering window counted from
+the oldest pending commit's arrival, even during the previous flush; deferred with timer
+ticks at k x interval and its buffer bound, two devices each with its own natural writer),
+flush time = device draw + transfer beyond the profiled block + the writer's CPU and hand-
+over + stall delay, time-based device stalls (one that would start during a stall is
+dropped), wake costs (the k-th woken commit waits ceil(k / cpus) wake costs), and regimes in
+time. The device's shared-cause share is not simulated (two devices stall independently).
 
 Two modes:
 
