@@ -344,7 +344,9 @@ def _flush_steps(w: Writer, buf: _Buffer) -> None:
             start = w._start(e, first, w.g[cand], np.inf)
         elif mode == BATCHED:
             nth = buf.at("J", cand, ptr + (w.target - 1))
-            start = np.maximum(e, np.minimum(np.maximum(e, first) + w.window_ms, nth))
+            # the window runs from the oldest pending commit's join, even when it joined
+            # during the previous flush (then the flush may start at once when it ends)
+            start = np.maximum(e, np.minimum(first + w.window_ms, nth))
         else:
             start = np.maximum(e, first)
         ok = start < buf.known[cand]
