@@ -25,6 +25,11 @@ Stalls (``stalls=(rate_per_s, duration_sampler)``)
     completes at its planned time plus the stalled time overlapping it, and a flush that
     starts during a stall waits for it to end. Overlapping stalls merge (the device is
     stalled on the union of the stall intervals).
+    ``stalls=(rate_per_s, duration_sampler, "drop")`` instead drops a stall that would
+    start during a stall: stall and gap alternate, each gap exponential with mean
+    1/rate (an alternating renewal process, stalled share E[D] / (E[D] + 1/rate)), which
+    is what a Poisson stream thinned of its starts inside a stall gives. ``"merge"`` as
+    the third element is the default above.
 
 Writer modes (one log writer, one flush at a time)
     ``group``           natural group commit: a commit arriving to an idle writer starts a
@@ -74,7 +79,8 @@ __all__ = [
 ]
 
 Sampler = Callable[[np.random.Generator], float]
-Stalls = tuple[float, Sampler]
+Stalls = tuple[float, Sampler] | tuple[float, Sampler, str]
+OVERLAPS = ("merge", "drop")
 
 MODES = ("group", "one_per_commit", "batched")
 _BLOCK = 4096  # interarrival times are drawn in blocks of this many
@@ -201,7 +207,9 @@ class LogDevice:
     """A log device that works on one flush at a time and stops during stalls.
 
     ``stalls=(rate_per_s, duration_sampler)`` starts stalls as a Poisson process in time
-    (drawn from ``rng``); ``schedule`` adds stalls at given ``(start_ms, duration_ms)``.
+    (drawn from ``rng``); a third element ``"drop"`` drops the starts that fall inside a
+    stall instead of merging the overlap (see the module docstring); ``schedule`` adds
+    stalls at given ``(start_ms, duration_ms)``.
     ``flush(work_ms)`` is a generator for ``yield from`` inside a simpy process: it returns
     once ``work_ms`` of unstalled time have passed since it was called.
     """
@@ -223,11 +231,15 @@ class LogDevice:
         self._in_flight: simpy.Process | None = None
         self.can_stall = stalls is not None or len(schedule) > 0
         if stalls is not None:
-            rate_per_s, duration = stalls
+            rate_per_s, duration = stalls[0], stalls[1]
+            overlap = stalls[2] if len(stalls) > 2 else "merge"
+            if overlap not in OVERLAPS:
+                raise ValueError(f"stall overlap must be one of {OVERLAPS}, got {overlap!r}")
             _positive("stall rate_per_s", rate_per_s)
             if rng is None:
                 raise ValueError("Poisson stalls need an rng")
-            env.process(self._poisson_stalls(1000.0 / rate_per_s, duration, rng))
+            env.process(self._poisson_stalls(1000.0 / rate_per_s, duration, rng,
+                                             overlap == "drop"))
         for start_ms, duration_ms in schedule:
             env.process(self._scheduled_stall(float(start_ms), float(duration_ms)))
 
@@ -259,10 +271,14 @@ class LogDevice:
             finally:
                 self._in_flight = None
 
-    def _poisson_stalls(self, mean_gap_ms: float, duration: Sampler, rng: np.random.Generator):
+    def _poisson_stalls(self, mean_gap_ms: float, duration: Sampler, rng: np.random.Generator,
+                        drop: bool = False):
         while True:
             yield self.env.timeout(rng.exponential(mean_gap_ms))
-            self.env.process(self._one_stall(float(duration(rng))))
+            if drop:  # the next gap starts when this stall ends (memoryless thinning)
+                yield from self._one_stall(float(duration(rng)))
+            else:
+                self.env.process(self._one_stall(float(duration(rng))))
 
     def _scheduled_stall(self, start_ms: float, duration_ms: float):
         yield self.env.timeout(start_ms)
