@@ -453,6 +453,8 @@ class DeferredResult:
     """A deferred-commit run; per measured commit (arrived inside the window) in ms.
 
     ``exposure_ms``: from acknowledgement to the completion of the flush that holds it.
+    ``handed_ms``: from acknowledgement to the start of that flush (when the record is
+    handed to the device: what a crash of the database process alone would lose).
     ``at_risk_time_avg``: the exact time integral over the window of the number of
     acknowledged-but-not-durable commits, divided by the window's length.
     ``at_risk_samples``: that number seen at Poisson inspection instants inside the window.
@@ -461,6 +463,7 @@ class DeferredResult:
 
     ack_ms: np.ndarray
     exposure_ms: np.ndarray
+    handed_ms: np.ndarray
     at_risk_time_avg: float
     at_risk_samples: np.ndarray
     at_risk_max: int
@@ -747,6 +750,7 @@ def run_deferred(
     arrived: list[float] = []
     acked: list[float] = []
     durable: list[float] = []
+    handed: list[float] = []
     unflushed: list[int] = []
     blocked: deque[int] = deque()
     risk = {"count": 0, "last": 0.0, "area": 0.0, "max": 0, "open": 0}
@@ -773,6 +777,7 @@ def run_deferred(
         arrived.append(env.now)
         acked.append(math.nan)
         durable.append(math.nan)
+        handed.append(math.nan)
         if t0 <= env.now <= t1:
             risk["open"] += 1
         # A record holds buffer space from its acknowledgement until it is durable, so the
@@ -792,6 +797,8 @@ def run_deferred(
             started = env.now
             if unflushed:
                 batch, unflushed = unflushed, []
+                for i in batch:
+                    handed[i] = started
                 yield from device.flush(draw(rngs[_FLUSH_A], len(batch)))
                 now = env.now
                 for i in batch:
@@ -835,6 +842,7 @@ def run_deferred(
     return DeferredResult(
         ack_ms=_frozen(ack - arr[measured]),
         exposure_ms=_frozen(dur - ack),
+        handed_ms=_frozen(np.array(handed)[measured] - ack),
         at_risk_time_avg=risk["area"] / window,
         at_risk_samples=_frozen(samples, int),
         at_risk_max=int(risk["max"]),

@@ -399,6 +399,10 @@ def test_deferred_exposure_is_half_interval_plus_flush():
     assert result.exposure_ms.min() >= flush - 1e-9
     assert result.exposure_ms.max() <= flush + interval + 1e-9
     assert np.all(result.ack_ms == 0.0)
+    # handed to the device at the flush's start: exactly one flush before durable, so the
+    # process-crash window is uniform on [0, I]
+    assert np.allclose(result.exposure_ms - result.handed_ms, flush)
+    assert_mean(result.handed_ms, interval / 2)
 
 
 def test_deferred_full_buffer_holds_commits_back():
