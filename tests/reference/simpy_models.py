@@ -459,6 +459,8 @@ class DeferredResult:
     acknowledged-but-not-durable commits, divided by the window's length.
     ``at_risk_samples``: that number seen at Poisson inspection instants inside the window.
     ``commit_rate_per_s``: measured commits per second of window.
+    ``writer_busy_share``: the share of the window in which a flush is in progress
+    (started and not yet complete, any wait for a stall included).
     """
 
     ack_ms: np.ndarray
@@ -472,6 +474,7 @@ class DeferredResult:
     batch_sizes: np.ndarray
     window_s: float
     stall_count: int
+    writer_busy_share: float
 
 
 @dataclass(frozen=True, eq=False)
@@ -758,6 +761,7 @@ def run_deferred(
     finished = env.event()
     sizes: list[int] = []
     flush_ends: list[float] = []
+    flush_starts: list[float] = []
 
     def change_at_risk(delta: int) -> None:
         now = env.now
@@ -808,6 +812,7 @@ def run_deferred(
                 change_at_risk(-len(batch))
                 sizes.append(len(batch))
                 flush_ends.append(now)
+                flush_starts.append(started)
                 while blocked and risk["count"] < capacity:
                     acknowledge(blocked.popleft())
                 if now >= t1 and risk["open"] == 0 and not finished.triggered:
@@ -839,6 +844,7 @@ def run_deferred(
     ends = np.array(flush_ends)
     in_window = (ends > t0) & (ends <= t1)
     window = t1 - t0
+    busy = np.clip(np.minimum(ends, t1) - np.maximum(np.array(flush_starts), t0), 0.0, None)
     return DeferredResult(
         ack_ms=_frozen(ack - arr[measured]),
         exposure_ms=_frozen(dur - ack),
@@ -851,6 +857,7 @@ def run_deferred(
         batch_sizes=_frozen(np.array(sizes, dtype=int)[in_window], int),
         window_s=window / 1000.0,
         stall_count=device.stall_count,
+        writer_busy_share=float(busy.sum()) / window,
     )
 
 

@@ -403,6 +403,9 @@ def test_deferred_exposure_is_half_interval_plus_flush():
     # process-crash window is uniform on [0, I]
     assert np.allclose(result.exposure_ms - result.handed_ms, flush)
     assert_mean(result.handed_ms, interval / 2)
+    # one flush of F every tick (each tick finds commits at 1000/s): busy F / I of the time,
+    # up to the window's cut of the flush at each end
+    assert result.writer_busy_share == pytest.approx(flush / interval, abs=2 * flush / 30_000)
 
 
 def test_deferred_full_buffer_holds_commits_back():
