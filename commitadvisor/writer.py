@@ -6,6 +6,7 @@ All times in ms, rates in commits per ms inside the functions unless a name says
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -23,13 +24,25 @@ __all__ = [
 
 @dataclass(frozen=True)
 class OpenGroupCommit:
-    """Natural group commit under Poisson arrivals (one writer, unlimited batch)."""
+    """Natural group commit under Poisson arrivals (one writer, unlimited batch).
 
-    response: L.Latency  # commit wait from arrival at the writer to the flush's completion
+    ``response`` is built on first use (a grid convolution): callers that iterate on the
+    mean batch and keep only the last law pay for one.
+    """
+
+    flush: L.Latency  # the flush-time law the writer was evaluated with
     idle_chance: float  # p = E[exp(-lambda S)]: no commit arrives during a flush
     writer_busy: float  # rho_w, the writer's busy share
     flushes_per_ms: float
     mean_batch: float
+
+    @cached_property
+    def response(self) -> L.Latency:
+        """Commit wait (ms) from arrival at the writer to the flush's completion:
+        S w.p. 1 - rho_w, R + S' w.p. rho_w (see ``open_group_commit``)."""
+        rho = self.writer_busy
+        waiting = L.convolve(L.residual(self.flush), self.flush)
+        return L.mixture([1.0 - rho, rho], [self.flush, waiting])
 
 
 def open_group_commit(flush: L.Latency, rate_per_ms: float) -> OpenGroupCommit:
@@ -50,9 +63,7 @@ def open_group_commit(flush: L.Latency, rate_per_ms: float) -> OpenGroupCommit:
     busy_run = es / p
     rho = busy_run / (1.0 / rate_per_ms + busy_run)
     flushes = (1.0 / p) / (1.0 / rate_per_ms + busy_run)
-    waiting = L.convolve(L.residual(flush), flush)
-    response = L.mixture([1.0 - rho, rho], [flush, waiting])
-    return OpenGroupCommit(response, p, rho, flushes, rate_per_ms / flushes)
+    return OpenGroupCommit(flush, p, rho, flushes, rate_per_ms / flushes)
 
 
 def geometric_sum(part: L.Latency, rho: float) -> L.Latency:
@@ -188,7 +199,29 @@ def closed_group_commit(flush_for_batch, sessions: int, think_ms: float) -> Clos
 
 
 def _stationary(trans: np.ndarray) -> np.ndarray:
-    """Stationary law of a finite Markov chain: pi P = pi, sum pi = 1 (one linear solve)."""
+    """Stationary law of a finite Markov chain: pi P = pi, sum pi = 1.
+
+    By state reduction (the Grassmann-Taksar-Heyman algorithm; Grassmann, Taksar and Heyman,
+    Operations Research 33, 1985): only sums of non-negative terms, so no cancellation, and
+    no dense LAPACK call (small multithreaded solves are slow on a loaded host)."""
+    p = np.array(trans, dtype=float)
+    size = p.shape[0]
+    for k in range(size - 1, 0, -1):
+        out = p[k, :k].sum()
+        if not out > 0:
+            return _stationary_solve(trans)
+        p[:k, k] /= out
+        p[:k, :k] += p[:k, k, None] * p[None, k, :k]
+    pi = np.zeros(size)
+    pi[0] = 1.0
+    for k in range(1, size):
+        pi[k] = float(pi[:k] @ p[:k, k])
+    return pi / pi.sum()
+
+
+def _stationary_solve(trans: np.ndarray) -> np.ndarray:
+    """Stationary law by one linear solve (fallback for a chain that state reduction cannot
+    take: a state that never leaves for a lower one)."""
     size = trans.shape[0]
     a = trans.T - np.eye(size)
     a[-1] = 1.0
@@ -199,13 +232,21 @@ def _stationary(trans: np.ndarray) -> np.ndarray:
 
 
 def _binomial_pmf(k: np.ndarray, n: int, p: np.ndarray) -> np.ndarray:
-    """Binomial(n, p) probabilities of k, one row per p (log-gamma form, stable at p = 0, 1)."""
-    from scipy.special import gammaln, xlog1py, xlogy
+    """Binomial(n, p) probabilities of k, one row per p (log-gamma form, stable at p = 0, 1).
 
-    kk = k[None, :].astype(float)
-    pp = p[:, None]
+    log pmf = log C(n, k) + k log p + (n - k) log(1 - p); the logarithms of p are taken once
+    per row, not once per entry."""
+    from scipy.special import gammaln
+
+    kk = k.astype(float)
+    pp = np.asarray(p, dtype=float)
     logc = gammaln(n + 1.0) - gammaln(kk + 1.0) - gammaln(n - kk + 1.0)
-    return np.exp(logc + xlogy(kk, pp) + xlog1py(n - kk, -pp))
+    # log 0 stood in by a huge finite number, so that 0 * log 0 = 0 (a row with p = 0 has
+    # all its mass at k = 0, one with p = 1 at k = n)
+    with np.errstate(divide="ignore"):
+        lp = np.maximum(np.log(pp), -1e300)
+        lq = np.maximum(np.log1p(-pp), -1e300)
+    return np.exp(logc[None, :] + kk[None, :] * lp[:, None] + (n - kk)[None, :] * lq[:, None])
 
 
 def _time_left(s: np.ndarray, w: np.ndarray, think_ms: float) -> L.GridLatency:
@@ -225,14 +266,16 @@ def _time_left(s: np.ndarray, w: np.ndarray, think_ms: float) -> L.GridLatency:
     ss, ws = ss[keep], ws[keep]
     x = np.concatenate([[0.0], np.geomspace(max(ss[0], 1e-6) * 1e-4, ss[-1], 1500)])
     z = think_ms
-    c = np.empty_like(x)
-    for i in range(0, len(x), 500):
-        xi = x[i:i + 500, None]
-        inside = np.minimum(xi, ss[None, :])
-        # (e^{r/Z} - 1)/(e^{s/Z} - 1) written with non-positive exponents for stability
-        num = np.exp((inside - ss[None, :]) / z) * -np.expm1(-inside / z)
-        den = -np.expm1(-ss[None, :] / z)
-        c[i:i + 500] = (num / den) @ ws
+    # flushes shorter than x contribute their whole weight; each longer one contributes
+    # w (e^{x/Z} - 1) / (e^{s/Z} - 1) = e^{x/Z} (1 - e^{-x/Z}) w e^{-s/Z} / (1 - e^{-s/Z}):
+    # a suffix sum over the sorted lengths, kept in logarithms so that e^{x/Z} cannot overflow
+    with np.errstate(divide="ignore"):
+        log_terms = np.log(ws) - ss / z - np.log(-np.expm1(-ss / z))
+        log_tail = np.concatenate([np.logaddexp.accumulate(log_terms[::-1])[::-1], [-np.inf]])
+        log_rise = x / z + np.log(-np.expm1(-x / z))
+    j = np.searchsorted(ss, x, side="right")
+    done = np.concatenate([[0.0], np.cumsum(ws)])[j]
+    c = done + np.exp(log_tail[j] + log_rise)
     c = np.clip(np.maximum.accumulate(c), 0.0, 1.0)
     mean, second = L._moments_from_cdf(x, c)
     return L.GridLatency(x, c, mean, second, 0.0, "time left of the flush in progress")
