@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -346,6 +347,8 @@ class Mixture(Latency):
 
     weights: tuple[float, ...]
     parts: tuple[Latency, ...]
+    # quantiles already inverted (the object is frozen, so they cannot go stale)
+    _quantiles: dict = field(default_factory=dict, init=False, repr=False, compare=False)
 
     @property
     def mean_ms(self) -> float:
@@ -369,7 +372,20 @@ class Mixture(Latency):
         return sum(w * p.laplace(s_per_ms) for w, p in zip(self.weights, self.parts, strict=True))
 
     def quantile(self, q: Any) -> np.ndarray:
-        return _invert_cdf(self, _arr(q))
+        """Numeric inverse of the mixture's cdf (``_invert_cdf``), remembered per probability
+        for short requests and per whole array for long ones."""
+        qq = _arr(q)
+        cache = self._quantiles
+        if qq.size > 16:
+            key = (qq.shape, qq.tobytes())
+            if key not in cache:
+                cache[key] = _invert_cdf(self, qq)
+            return cache[key].copy()
+        flat = qq.ravel().tolist()
+        missing = sorted({v for v in flat if v not in cache})
+        if missing:
+            cache.update(zip(missing, _invert_cdf(self, np.array(missing)).tolist(), strict=True))
+        return np.array([cache[v] for v in flat], dtype=float).reshape(qq.shape)
 
     @property
     def upper_ms(self) -> float:
@@ -385,20 +401,64 @@ class Mixture(Latency):
         return out
 
 
-def _invert_cdf(dist: Latency, q: np.ndarray) -> np.ndarray:
-    """Numeric quantile by bracketing on a log grid, then bisection (relative 1e-7)."""
-    hi = max(dist.upper_ms, 1e-9) * 4
-    grid = np.concatenate([[0.0], np.geomspace(hi * 1e-12, hi, 4096)])
+def _invert_cdf(dist: Latency, q: np.ndarray, rtol: float = 1e-10) -> np.ndarray:
+    """Numeric quantile: the smallest x (ms) with F(x) >= q, to relative ``rtol``.
+
+    Bracketed on a log grid of 2048 points, then refined by the Illinois variant of regula
+    falsi (Dowell and Jarratt, BIT 11, 1971), with a bisection step whenever a step fails to
+    halve the bracket, so atoms and flat stretches of F converge as surely as by bisection.
+    The bracket keeps F(lo) < q <= F(hi); the upper end is returned.
+    """
+    top = max(dist.upper_ms, 1e-9) * 4
+    grid = np.concatenate([[0.0], np.geomspace(top * 1e-12, top, 2048)])
     c = dist.cdf(grid)
     qf = np.clip(q.ravel(), 0.0, 1.0)
-    idx = np.clip(np.searchsorted(c, qf, side="left"), 1, len(grid) - 1)
-    lo_x, hi_x = grid[idx - 1].copy(), grid[idx].copy()
-    for _ in range(40):
-        mid = 0.5 * (lo_x + hi_x)
-        below = dist.cdf(mid) < qf
-        lo_x = np.where(below, mid, lo_x)
-        hi_x = np.where(below, hi_x, mid)
-    return hi_x.reshape(q.shape)
+    idx = np.searchsorted(c, qf, side="left")
+    out = np.where(idx == 0, 0.0, grid[-1])  # q <= F(0): 0; q beyond the grid: its end
+    inside = np.flatnonzero((idx > 0) & (idx < len(grid)))
+    if inside.size == 0:
+        return out.reshape(q.shape)
+    qa = qf[inside]
+    lo, hi = grid[idx[inside] - 1], grid[idx[inside]]
+    f_lo, f_hi = c[idx[inside] - 1], c[idx[inside]]
+    # Illinois weights on the residuals F - q at the two ends (halved on a repeated side)
+    w_lo, w_hi = np.ones(len(qa)), np.ones(len(qa))
+    moved = np.zeros(len(qa), dtype=np.int8)  # side moved last: -1 lower end, +1 upper end
+    ref_width = hi - lo  # width when the last check began: bisect if it has not halved since
+    age = np.zeros(len(qa), dtype=np.int8)
+    live = np.arange(len(qa))
+    for _ in range(200):
+        width = hi[live] - lo[live]
+        keep = width > rtol * hi[live]
+        live, width = live[keep], width[keep]
+        if live.size == 0:
+            break
+        lo_l, hi_l = lo[live], hi[live]
+        r_lo = w_lo[live] * (f_lo[live] - qa[live])
+        r_hi = w_hi[live] * (f_hi[live] - qa[live])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            mid = lo_l + width * (r_lo / (r_lo - r_hi))
+        # at least half the tolerance inside either end, so that the bracket closes
+        tau = np.minimum(0.5 * rtol * hi_l, 0.25 * width)
+        mid = np.clip(np.nan_to_num(mid, nan=0.0), lo_l + tau, hi_l - tau)
+        check = age[live] >= 3
+        # bisect when the bracket has not halved in three steps, or where the two ends' F
+        # differ by rounding only (interpolation is noise there)
+        slow = (check & (width > 0.5 * ref_width[live])) | (f_hi[live] - f_lo[live] < 1e-13)
+        mid = np.where(slow, lo_l + 0.5 * width, mid)
+        ref_width[live] = np.where(check, width, ref_width[live])
+        age[live] = np.where(check, 0, age[live] + 1)
+        f_mid = dist.cdf(mid)
+        below = f_mid < qa[live]
+        up, dn = live[below], live[~below]
+        lo[up], f_lo[up], w_lo[up] = mid[below], f_mid[below], 1.0
+        w_hi[up] = np.where(moved[up] == -1, 0.5 * w_hi[up], w_hi[up])
+        moved[up] = -1
+        hi[dn], f_hi[dn], w_hi[dn] = mid[~below], f_mid[~below], 1.0
+        w_lo[dn] = np.where(moved[dn] == 1, 0.5 * w_lo[dn], w_lo[dn])
+        moved[dn] = 1
+    out[inside] = hi
+    return out.reshape(q.shape)
 
 
 # --------------------------------------------------------------------------- numeric grid
@@ -435,12 +495,18 @@ class GridLatency(Latency):
     def cdf(self, x_ms: Any) -> np.ndarray:
         return np.interp(_arr(x_ms), self.x_ms, self.cdf_at, left=0.0, right=self.cdf_at[-1])
 
-    def quantile(self, q: Any) -> np.ndarray:
-        qq = np.clip(_arr(q), 0.0, 1.0)
+    @cached_property
+    def _inverse(self) -> tuple[np.ndarray, np.ndarray]:
+        """(cdf, x) with the cdf strictly increasing, for ``quantile`` (built once)."""
         c = np.maximum.accumulate(self.cdf_at)
         # np.interp needs increasing xp; flat stretches of the cdf map to their left end
         keep = np.concatenate([[True], np.diff(c) > 0])
-        return np.interp(qq, c[keep], self.x_ms[keep], left=0.0, right=self.x_ms[-1])
+        return c[keep], self.x_ms[keep]
+
+    def quantile(self, q: Any) -> np.ndarray:
+        qq = np.clip(_arr(q), 0.0, 1.0)
+        c, x = self._inverse
+        return np.interp(qq, c, x, left=0.0, right=self.x_ms[-1])
 
     @property
     def upper_ms(self) -> float:
@@ -450,8 +516,9 @@ class GridLatency(Latency):
 def _span(dists: tuple[Latency, ...]) -> tuple[float, float, float]:
     """Grid scales: fine step, fine span and coarse span (ms) from the operands' quantiles."""
     far = sum(d.upper_ms for d in dists)
-    body = sum(float(d.quantile(0.999)) for d in dists)
-    small = min(max(float(d.quantile(0.05)), 1e-6) for d in dists)
+    qs = [d.quantile(np.array([0.05, 0.999])) for d in dists]  # one inversion per operand
+    body = sum(float(q[1]) for q in qs)
+    small = min(max(float(q[0]), 1e-6) for q in qs)
     fine_span = min(max(4 * body, 16 * small), far) or far
     step = min(small / 32, fine_span / _FINE_POINTS)
     fine_span = min(fine_span, step * _FINE_POINTS)
