@@ -32,8 +32,11 @@ __all__ = ["evaluate_regime", "lag_distribution"]
 
 
 def lag_distribution(a: L.Latency, b: L.Latency) -> L.GridLatency:
-    """|T_a - T_b| for independent T_a, T_b: P(|D| <= x) = P(Ta - Tb <= x) - P(Ta - Tb < -x),
-    integrated over T_b's quantiles (midpoint rule in probability)."""
+    """|T_a - T_b| for independent T_a, T_b: P(|D| <= x) = P(Ta - Tb <= x) - P(Ta < Tb - x),
+    integrated over T_b's quantiles (midpoint rule in probability).
+
+    T_a's cdf is tabulated once on a log grid of 2^14 points (ratio about 1.002 a step) and
+    read by linear interpolation, rather than evaluated afresh at every (x, T_b) pair."""
     u = np.concatenate([(np.arange(400) + 0.5) / 400 * 0.99,
                         0.99 + (np.arange(100) + 0.5) / 100 * 0.0099,
                         0.9999 + (np.arange(100) + 0.5) / 100 * 0.0000999])
@@ -44,12 +47,16 @@ def lag_distribution(a: L.Latency, b: L.Latency) -> L.GridLatency:
     ya = a.quantile(u)
     hi = max(float(ya.max()), float(yb.max()))
     x = np.concatenate([[0.0], np.geomspace(hi * 1e-6, hi, 800)])
+    top = float(yb.max()) + hi
+    table_x = np.concatenate([[0.0], np.geomspace(hi * 1e-9, top, 1 << 14)])
+    table_c = a.cdf(table_x)
     c = np.empty_like(x)
     for i in range(0, len(x), 250):
         xi = x[i:i + 250, None]
-        # P(Ta <= Tb + x) - P(Ta < Tb - x) averaged over Tb
-        c[i:i + 250] = (a.cdf(yb[None, :] + xi) - a.cdf(np.maximum(yb[None, :] - xi, 0)
-                                                         - 1e-12)) @ w
+        # P(Ta <= Tb + x) - P(Ta < Tb - x) averaged over Tb; below 0 the cdf is 0
+        upper = np.interp(yb[None, :] + xi, table_x, table_c)
+        lower = np.interp(np.maximum(yb[None, :] - xi, 0) - 1e-12, table_x, table_c, left=0.0)
+        c[i:i + 250] = (upper - lower) @ w
     c = np.clip(np.maximum.accumulate(c), 0.0, 1.0)
     mean, second = L._moments_from_cdf(x, c)
     return L.GridLatency(x, c, mean, second, float(1 - c[-1]), "second copy's lag")
