@@ -232,21 +232,44 @@ def _stationary_solve(trans: np.ndarray) -> np.ndarray:
 
 
 def _binomial_pmf(k: np.ndarray, n: int, p: np.ndarray) -> np.ndarray:
-    """Binomial(n, p) probabilities of k, one row per p (log-gamma form, stable at p = 0, 1).
+    """Binomial(n, p) probabilities of k = 0, 1, ..., K - 1 (consecutive, from 0), one row
+    per p.
 
-    log pmf = log C(n, k) + k log p + (n - k) log(1 - p); the logarithms of p are taken once
-    per row, not once per entry."""
+    The log-gamma form log C(n, k) + k log p + (n - k) log(1 - p) is exponentiated only at
+    every 8th k (stable at p = 0 and 1); in between, the ratio P(k + 1) / P(k) =
+    (n - k) / (k + 1) * p / (1 - p) carries it by multiplications (an exponential costs
+    as much as ~30 of them). A block whose anchor underflows holds values below the next
+    anchor's, which are negligible against the total mass."""
     from scipy.special import gammaln
 
-    kk = k.astype(float)
+    size = len(k)
     pp = np.asarray(p, dtype=float)
-    logc = gammaln(n + 1.0) - gammaln(kk + 1.0) - gammaln(n - kk + 1.0)
+    block = 8
+    blocks = -(-size // block)
+    k0 = np.arange(blocks, dtype=float) * block
     # log 0 stood in by a huge finite number, so that 0 * log 0 = 0 (a row with p = 0 has
-    # all its mass at k = 0, one with p = 1 at k = n)
+    # all its mass at k = 0)
     with np.errstate(divide="ignore"):
         lp = np.maximum(np.log(pp), -1e300)
         lq = np.maximum(np.log1p(-pp), -1e300)
-    return np.exp(logc[None, :] + kk[None, :] * lp[:, None] + (n - kk)[None, :] * lq[:, None])
+    logc = gammaln(n + 1.0) - gammaln(k0 + 1.0) - gammaln(np.maximum(n - k0, 0.0) + 1.0)
+    anchor = np.multiply.outer(lp, k0)
+    anchor += np.multiply.outer(lq, n - k0)
+    anchor += logc
+    np.exp(anchor, out=anchor)
+    # within a block: P(k0 + i) = P(k0) r^i prod_{l < i} (n - k0 - l) / (k0 + l + 1)
+    i = np.arange(block, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = np.where(pp < 1.0, pp / (1.0 - pp), 0.0)
+    powers = r[:, None] ** i[None, :]
+    steps = np.maximum(n - k0[:, None] - i[None, :], 0.0) / (k0[:, None] + i[None, :] + 1.0)
+    comb = np.concatenate([np.ones((blocks, 1)), np.cumprod(steps[:, :-1], axis=1)], axis=1)
+    out = (anchor[:, :, None] * powers[:, None, :] * comb[None, :, :]).reshape(len(pp), -1)
+    out = out[:, :size]
+    ones = np.flatnonzero(pp >= 1.0)
+    if ones.size:  # p = 1: all the mass at k = n
+        out[ones] = (k == n).astype(float)[None, :]
+    return out
 
 
 def _time_left(s: np.ndarray, w: np.ndarray, think_ms: float) -> L.GridLatency:
