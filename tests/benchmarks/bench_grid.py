@@ -62,7 +62,7 @@ def main(argv: list[str] | None = None) -> int:
     specs = CI_GRID if args.ci else bench_grid(args.seed, args.count)
     cells = failing = 0
     failing_cases: list[str] = []
-    per_case: list[tuple[str, float | None, float | None, float, float, int]] = []
+    per_case: list[tuple[str, float | None, float | None, float, float, int, str]] = []
     started = time.perf_counter()
     width = max(len(g.name) for g in specs)
     print(
@@ -92,9 +92,12 @@ def main(argv: list[str] | None = None) -> int:
             )
             if not ok:
                 failing_cases.append(g.name)
-            per_case.append((g.name, None, None, t_eval, t_sim, commits))
+            per_case.append(
+                (g.name, None, None, t_eval, t_sim, commits, "pass" if ok else "FAIL saturated")
+            )
             continue
         bad = False
+        bad_figures: list[str] = []
         for j, (figure, av, sv, tol) in enumerate(figure_pairs(a, s)):
             ok, rel, note = cell_verdict(av, sv, tol)
             spread = ""
@@ -106,6 +109,7 @@ def main(argv: list[str] | None = None) -> int:
             if not ok:
                 failing += 1
                 bad = True
+                bad_figures.append(figure)
             if args.failing_only and ok:
                 continue
             rel_s = "-" if rel is None or not math.isfinite(rel) else f"{rel:+.2%}"
@@ -117,15 +121,28 @@ def main(argv: list[str] | None = None) -> int:
             )
         if bad:
             failing_cases.append(g.name)
-        per_case.append((g.name, s.writer_utilisation, s.cpu_utilisation, t_eval, t_sim, commits))
+        per_case.append(
+            (
+                g.name,
+                s.writer_utilisation,
+                s.cpu_utilisation,
+                t_eval,
+                t_sim,
+                commits,
+                "FAIL " + ", ".join(bad_figures) if bad_figures else "pass",
+            )
+        )
     total = time.perf_counter() - started
     print()
     print(
         f"{'case':<{width}}  {'busy share':>10} {'cpu util':>9} {'eval s':>7} {'sim s':>7} "
-        f"{'commits':>10}"
+        f"{'commits':>10}  result"
     )
-    for name, busy, cpu, te, ts, n in per_case:
-        print(f"{name:<{width}}  {_fmt(busy):>10} {_fmt(cpu):>9} {te:7.2f} {ts:7.2f} {n:>10,}")
+    for name, busy, cpu, te, ts, n, verdict in per_case:
+        print(
+            f"{name:<{width}}  {_fmt(busy):>10} {_fmt(cpu):>9} {te:7.2f} {ts:7.2f} {n:>10,}"
+            f"  {verdict}"
+        )
     print()
     print(
         f"cases {len(specs)}, cells {cells}, failing cells {failing}, failing cases "

@@ -232,7 +232,6 @@ CI_GRID: tuple[GridSpec, ...] = (
     _g("sync", "open", "ln10", 0.1, rate_per_s=124.0, commits=200_000),
     _g("sync", "open", "ln10", 0.5, rate_per_s=768.0),
     _g("sync", "open", "ln10", 0.9, rate_per_s=3045.0, commits=1_100_000),
-    _g("sync", "open", "ln20", 0.6, rate_per_s=1311.0, commits=3_000_000),
     _g("sync", "open", "mix1", 0.4, rate_per_s=734.8, commits=1_200_000),
     _g("sync", "open", "mix1", 0.85, rate_per_s=2566.0, commits=2_500_000),
     _g("sync", "open", "ln2", 0.5, rate_per_s=536.8, stalls=True, commits=200_000),
