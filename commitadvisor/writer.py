@@ -161,9 +161,7 @@ def closed_group_commit(flush_for_batch, sessions: int, think_ms: float) -> Clos
         s, w = _quadrature(flush_for_batch(b), cache)
         nodes_by_b[b] = (s, w)
         pi = -np.expm1(-s / think_ms)
-        k = np.arange(n - b + 1)
-        pmf = _binomial_pmf(k, n - b, pi)
-        trans[b, : n - b + 1] = w @ pmf
+        trans[b, : n - b + 1] = _binomial_mixture(w, n - b, pi)
         cycle[b] = float(w @ s)
     trans[0] = trans[1]
     cycle[0] = think_ms / n + cycle[1]
@@ -231,22 +229,23 @@ def _stationary_solve(trans: np.ndarray) -> np.ndarray:
     return pi / pi.sum()
 
 
-def _binomial_pmf(k: np.ndarray, n: int, p: np.ndarray) -> np.ndarray:
-    """Binomial(n, p) probabilities of k = 0, 1, ..., K - 1 (consecutive, from 0), one row
-    per p.
+_BLOCK = 8  # counts per block of the blocked binomial pmf
+
+
+def _binomial_blocks(k_count: int, n: int, p: np.ndarray):
+    """Blocked Binomial(n, p) pmf of k = 0 .. k_count - 1, one row per p:
+    P(k0 + i) = anchor[row, block] * powers[row, i] * comb[block, i], k0 = block * 8.
 
     The log-gamma form log C(n, k) + k log p + (n - k) log(1 - p) is exponentiated only at
-    every 8th k (stable at p = 0 and 1); in between, the ratio P(k + 1) / P(k) =
-    (n - k) / (k + 1) * p / (1 - p) carries it by multiplications (an exponential costs
-    as much as ~30 of them). A block whose anchor underflows holds values below the next
-    anchor's, which are negligible against the total mass."""
+    the anchors k0 (stable at p = 0 and 1); in a block the ratio P(k + 1) / P(k) =
+    (n - k) / (k + 1) * p / (1 - p) carries it by multiplications. A block whose anchor
+    underflows holds values below ~1e-250, negligible against the total mass. Rows with
+    p = 1 are returned separately (``ones``): their mass is all at k = n."""
     from scipy.special import gammaln
 
-    size = len(k)
     pp = np.asarray(p, dtype=float)
-    block = 8
-    blocks = -(-size // block)
-    k0 = np.arange(blocks, dtype=float) * block
+    blocks = -(-k_count // _BLOCK)
+    k0 = np.arange(blocks, dtype=float) * _BLOCK
     # log 0 stood in by a huge finite number, so that 0 * log 0 = 0 (a row with p = 0 has
     # all its mass at k = 0)
     with np.errstate(divide="ignore"):
@@ -257,18 +256,37 @@ def _binomial_pmf(k: np.ndarray, n: int, p: np.ndarray) -> np.ndarray:
     anchor += np.multiply.outer(lq, n - k0)
     anchor += logc
     np.exp(anchor, out=anchor)
-    # within a block: P(k0 + i) = P(k0) r^i prod_{l < i} (n - k0 - l) / (k0 + l + 1)
-    i = np.arange(block, dtype=float)
+    i = np.arange(_BLOCK, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         r = np.where(pp < 1.0, pp / (1.0 - pp), 0.0)
     powers = r[:, None] ** i[None, :]
     steps = np.maximum(n - k0[:, None] - i[None, :], 0.0) / (k0[:, None] + i[None, :] + 1.0)
     comb = np.concatenate([np.ones((blocks, 1)), np.cumprod(steps[:, :-1], axis=1)], axis=1)
-    out = (anchor[:, :, None] * powers[:, None, :] * comb[None, :, :]).reshape(len(pp), -1)
+    ones = pp >= 1.0
+    anchor[ones] = 0.0
+    return anchor, powers, comb, ones
+
+
+def _binomial_pmf(k: np.ndarray, n: int, p: np.ndarray) -> np.ndarray:
+    """Binomial(n, p) probabilities of k = 0, 1, ..., K - 1 (consecutive, from 0), one row
+    per p (blocked form of ``_binomial_blocks``)."""
+    size = len(k)
+    anchor, powers, comb, ones = _binomial_blocks(size, n, p)
+    out = (anchor[:, :, None] * powers[:, None, :] * comb[None, :, :]).reshape(len(ones), -1)
     out = out[:, :size]
-    ones = np.flatnonzero(pp >= 1.0)
-    if ones.size:  # p = 1: all the mass at k = n
-        out[ones] = (k == n).astype(float)[None, :]
+    if ones.any():  # p = 1: all the mass at k = n
+        out[ones] = (np.asarray(k) == n).astype(float)[None, :]
+    return out
+
+
+def _binomial_mixture(w: np.ndarray, n: int, p: np.ndarray) -> np.ndarray:
+    """sum_j w_j P(Binomial(n, p_j) = k) for k = 0 .. n, without forming the pmf rows:
+    sum_j w_j anchor_jb r_j^i is one small contraction per block (no BLAS call)."""
+    anchor, powers, comb, ones = _binomial_blocks(n + 1, n, p)
+    mixed = np.einsum("jb,ji->bi", w[:, None] * anchor, powers) * comb
+    out = mixed.reshape(-1)[: n + 1]
+    if ones.any():
+        out[n] += float(w[ones].sum())
     return out
 
 
@@ -366,8 +384,7 @@ def closed_batched_commit(flush_for_batch, sessions: int, think_ms: float, windo
     for big_b in range(1, n + 1):
         s, w = _quadrature(flush_for_batch(big_b), cache)
         nodes[big_b] = (s, w)
-        k = np.arange(n - big_b + 1)
-        rows[big_b, : n - big_b + 1] = w @ _binomial_pmf(k, n - big_b, -np.expm1(-s / z))
+        rows[big_b, : n - big_b + 1] = _binomial_mixture(w, n - big_b, -np.expm1(-s / z))
         flush_mean[big_b] = float(w @ s)
     trans = np.zeros((n + 1, n + 1))
     cycle = np.zeros(n + 1)

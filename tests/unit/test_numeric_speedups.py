@@ -166,3 +166,13 @@ def test_open_group_commit_builds_its_response_once():
     # E[T] = E[S] + rho_w E[S^2] / (2 E[S]) (the docstring's formula; Kleinrock 1975, 5.2)
     want = flush.mean_ms + og.writer_busy * flush.second_moment_ms2 / (2 * flush.mean_ms)
     assert first.mean_ms == pytest.approx(want, rel=1e-12)
+
+
+@pytest.mark.parametrize("n", [0, 1, 8, 9, 100])
+def test_binomial_mixture_matches_scipy(n):
+    rng = np.random.default_rng(8)
+    p = np.concatenate([[0.0, 1.0, 1 - 1e-12], rng.random(40)])
+    w = rng.random(len(p))
+    w /= w.sum()
+    ref = w @ stats.binom.pmf(np.arange(n + 1)[None, :], n, p[:, None])
+    assert np.allclose(W._binomial_mixture(w, n, p), ref, rtol=1e-11, atol=1e-250)
