@@ -13,6 +13,7 @@ from commitadvisor import latency as L
 from commitadvisor.case import Case, regime_time_shares, strategy_name
 from commitadvisor.results import FAILURE_KINDS, Evaluation, Exposure, RegimeResult, StrategyResult
 from commitadvisor.strategies import batched, deferred, dual_device, synchronous
+from commitadvisor.strategies.common import at_risk_quantile
 from commitadvisor.strategies.context import build_context
 from commitadvisor.summary import _settings
 
@@ -64,12 +65,16 @@ def _blend_exposure(case: Case, failure: str, rs: tuple[RegimeResult, ...]) -> E
         # per-commit figures: percentiles of the commit-weighted mixture of the windows
         mixed = L.mixture([r.commit_share for r in rs], [e.window for e in es])
         p99, p999 = (float(v) for v in mixed.quantile([0.99, 0.999]))
+        at_risk_p999 = at_risk_quantile(
+            [(r.time_share, e.window, r.throughput_per_s / 1000.0, e.at_risk_bound)
+             for r, e in zip(rs, es, strict=True)], 0.999)
         basis = ("window percentiles from the commit-weighted mixture of the regimes; "
-                 "at-risk mean time-weighted, its p99.9 the worst regime's")
+                 "at-risk mean and p99.9 from the time-weighted mixture")
     else:
         mixed = None
         p99 = max(e.window_p99_ms for e in es)
         p999 = max(e.window_p999_ms for e in es)
+        at_risk_p999 = max(e.at_risk_p999 for e in es)
         basis = "time-weighted mean over the regimes; percentiles are the worst regime's"
     return Exposure(
         failure=failure,
@@ -77,7 +82,7 @@ def _blend_exposure(case: Case, failure: str, rs: tuple[RegimeResult, ...]) -> E
         window_p99_ms=p99,
         window_p999_ms=p999,
         at_risk_mean=at_risk,
-        at_risk_p999=max(e.at_risk_p999 for e in es),
+        at_risk_p999=at_risk_p999,
         at_risk_bound=max(bounds) if bounds else None,
         expected_lost_per_year=per_year * at_risk,
         value_lost_per_year=per_year * at_risk * value if value else None,
@@ -100,8 +105,12 @@ def blend(case: Case, rs: tuple[RegimeResult, ...]) -> RegimeResult:
             cpu_utilisation=None, copies_at_ack=min(r.copies_at_ack for r in rs),
             saturation=sat.saturation,
             notes=(f"saturated in regime {sat.regime}: the blend has no steady state",))
-    ack = L.mixture([r.commit_share for r in rs], [r.ack_latency for r in rs])
+    weights = [r.commit_share for r in rs]
+    ack = L.mixture(weights, [r.ack_latency for r in rs])
     q = [float(v) for v in ack.quantile([0.5, 0.9, 0.99, 0.999])]
+    durable = None
+    if all(r.durable_latency is not None for r in rs):
+        durable = L.mixture(weights, [r.durable_latency for r in rs])
     devices = sorted({d for r in rs for d, _ in r.flushes_per_s})
     flushes = tuple((d, sum(r.time_share * dict(r.flushes_per_s).get(d, 0.0) for r in rs))
                     for d in devices)
@@ -116,14 +125,12 @@ def blend(case: Case, rs: tuple[RegimeResult, ...]) -> RegimeResult:
         regime="blended", time_share=1.0, commit_share=1.0, throughput_per_s=throughput,
         ack_mean_ms=ack.mean_ms, ack_p50_ms=q[0], ack_p90_ms=q[1], ack_p99_ms=q[2],
         ack_p999_ms=q[3],
-        durable_mean_ms=None if any(r.durable_mean_ms is None for r in rs)
-        else sum(r.commit_share * r.durable_mean_ms for r in rs),
-        durable_p99_ms=None if any(r.durable_p99_ms is None for r in rs)
-        else max(r.durable_p99_ms for r in rs),
+        durable_mean_ms=None if durable is None else durable.mean_ms,
+        durable_p99_ms=None if durable is None else float(durable.quantile(0.99)),
         exposures=exposures, flushes_per_s=flushes,
         mean_batch_commits=tw("mean_batch_commits"), writer_utilisation=tw("writer_utilisation"),
         cpu_utilisation=tw("cpu_utilisation"), copies_at_ack=min(r.copies_at_ack for r in rs),
         notes=("blended: latency percentiles from the commit-weighted mixture of the regimes; "
                "look at each regime as well, a burst's tail hides in an hourly figure",),
-        ack_latency=ack,
+        ack_latency=ack, durable_latency=durable,
     )

@@ -86,6 +86,7 @@ class RegimeResult:
     saturation: Saturation | None = None
     notes: tuple[str, ...] = ()
     ack_latency: Any = field(default=None, repr=False, compare=False)  # a latency.Latency
+    durable_latency: Any = field(default=None, repr=False, compare=False)  # a latency.Latency
 
     def exposure(self, failure: str) -> Exposure:
         return next(e for e in self.exposures if e.failure == failure)
@@ -133,7 +134,7 @@ class Evaluation:
         return next(s for s in self.strategies if s.name == name)
 
 
-_DISTRIBUTIONS = {"ack_latency", "window"}  # distribution objects, not JSON figures
+_DISTRIBUTIONS = {"ack_latency", "durable_latency", "window"}  # distribution objects, not JSON figures
 
 
 def to_plain(obj: Any) -> Any:

@@ -11,7 +11,7 @@ from commitadvisor.case import Case
 from commitadvisor.results import FAILURE_KINDS, Exposure, RegimeResult, Saturation
 
 __all__ = ["Partial", "safe", "unbounded", "from_window", "assemble", "saturated_result",
-           "mixed_poisson_quantile"]
+           "mixed_poisson_quantile", "at_risk_quantile"]
 
 
 @dataclass(frozen=True)
@@ -44,19 +44,34 @@ def mixed_poisson_quantile(window: L.Latency, rate_per_ms: float, q: float) -> f
     """q-quantile of the at-risk count at a random instant: a Poisson count with random mean
     lambda W (the distributional form of Little's law for Poisson arrivals and first-in
     first-out durability; Haji and Newell, Operations Research 1971 — from memory)."""
+    return at_risk_quantile([(1.0, window, rate_per_ms, None)], q)
+
+
+_U_BODY = (np.arange(2000) + 0.5) / 2000
+_U_AT_RISK = np.concatenate([_U_BODY * 0.99, 0.99 + _U_BODY * 0.0099, 0.9999 + _U_BODY * 0.0000999])
+_W_AT_RISK = np.concatenate([np.full(2000, 0.99), np.full(2000, 0.0099),
+                             np.full(2000, 0.0000999)]) / 2000
+_W_AT_RISK = _W_AT_RISK / _W_AT_RISK.sum()
+
+
+def at_risk_quantile(parts: list[tuple[float, L.Latency, float, float | None]], q: float) -> float:
+    """q-quantile of the at-risk count at a random instant when, with probability w_i, the
+    instant falls in part i (a regime) whose count is mixed Poisson with mean lambda_i W_i,
+    capped by the hard bound b_i when there is one: P(N <= n) = sum_i w_i P_i(N <= n).
+    ``parts`` holds (w_i, W_i, lambda_i per ms, b_i)."""
     from scipy.special import pdtr
 
-    u = (np.arange(2000) + 0.5) / 2000
-    u = np.concatenate([u * 0.99, 0.99 + u * 0.0099, 0.9999 + u * 0.0000999])
-    wts = np.concatenate([np.full(2000, 0.99 / 2000), np.full(2000, 0.0099 / 2000),
-                          np.full(2000, 0.0000999 / 2000)])
-    wts = wts / wts.sum()
-    means = rate_per_ms * window.quantile(u)
+    total = sum(p[0] for p in parts)
+    comps = [(w / total, rate * np.asarray(win.quantile(_U_AT_RISK), dtype=float), bound)
+             for w, win, rate, bound in parts if w > 0]
 
     def cdf(n: int) -> float:
-        return float(wts @ pdtr(n, means))
+        return sum(w * (1.0 if bound is not None and n >= bound
+                        else float(_W_AT_RISK @ pdtr(n, means)))
+                   for w, means, bound in comps)
 
-    lo, hi = -1, int(max(10, 4 * means.max() + 50))
+    hi_all = max(4 * float(m.max()) + 50 for _, m, _ in comps)
+    lo, hi = -1, int(max(10, hi_all))
     while hi - lo > 1:  # smallest n with P(count <= n) >= q, by bisection
         mid = (lo + hi) // 2
         if cdf(mid) >= q:
@@ -101,7 +116,7 @@ def assemble(regime: str, time_share: float, p: Partial) -> RegimeResult:
         flushes_per_s=tuple((d, f * 1000.0) for d, f in p.flushes_per_ms),
         mean_batch_commits=p.mean_batch, writer_utilisation=p.writer_busy,
         cpu_utilisation=p.cpu_busy, copies_at_ack=p.copies_at_ack,
-        saturation=None, notes=tuple(notes), ack_latency=ack,
+        saturation=None, notes=tuple(notes), ack_latency=ack, durable_latency=p.durable,
     )
 
 
