@@ -9,7 +9,8 @@ from commitadvisor import latency as L
 from commitadvisor import writer as W
 from commitadvisor.case import NORMAL, Case, Device
 
-__all__ = ["RegimeContext", "DeviceInRegime", "build_context", "stall_mixture"]
+__all__ = ["RegimeContext", "DeviceInRegime", "build_context", "stall_mixture",
+           "flushes_with_stalls", "busy_with_stalls"]
 
 
 @dataclass(frozen=True)
@@ -124,20 +125,47 @@ def build_context(case: Case, regime: str, time_share: float) -> RegimeContext:
 
 
 def stall_mixture(base: L.Latency, dev: DeviceInRegime, rate_per_ms: float,
-                  log_bytes: int) -> tuple[L.Latency, float]:
+                  log_bytes: int, flush: L.Latency | None = None,
+                  busy: float = 0.0) -> tuple[L.Latency, float]:
     """Commit wait with time-based device stalls folded in (quasi-static approximation).
 
     A commit arriving while the device is stalled (chance = the stalled share of time, by
-    PASTA) waits the stall's equilibrium residual and then one flush carrying everything that
-    piled up; a commit whose wait is under way when a stall starts (chance ~ rate x E[T])
-    waits a whole stall more. Returns the law and the stalled share.
+    PASTA) waits the stall's equilibrium residual, then the flush the stall held (the rest
+    of the one in flight when it began, chance ``busy``, or the whole one the first commit
+    of the stall started) and then one flush carrying everything that piled up; a commit
+    whose wait is under way when a stall starts (chance ~ rate x E[T]) waits a whole stall
+    more. Returns the law and the stalled share.
     """
     if dev.stall_duration is None:
         return base, 0.0
     f = dev.stalled_share
     d = dev.stall_duration
-    piled = rate_per_ms * d.second_moment_ms2 / (2 * d.mean_ms)
-    after = L.convolve(L.residual(d), dev.flush(max(piled, 1.0), log_bytes))
+    # the commit's flush carries the whole stall it fell in (length-biased, E[D^2] / E[D])
+    piled = rate_per_ms * d.second_moment_ms2 / d.mean_ms
+    after = [L.residual(d)]
+    if flush is not None:
+        b = min(max(busy, 0.0), 1.0)
+        held = L.mixture([b, 1 - b], [L.residual(flush), flush])
+        after.append(held)
+        piled += rate_per_ms * held.mean_ms
+    after.append(dev.flush(max(piled, 1.0), log_bytes))
+    after_law = L.convolve(*after)
     g = min(0.5, dev.stall_rate_per_ms * base.mean_ms)
     hit = L.convolve(base, d)
-    return L.mixture([(1 - f) * (1 - g), (1 - f) * g, f], [base, hit, after]), f
+    return L.mixture([(1 - f) * (1 - g), (1 - f) * g, f], [base, hit, after_law]), f
+
+
+def flushes_with_stalls(flushes_per_ms: float, dev: DeviceInRegime) -> float:
+    """Flushes per ms once stalls are in: none while the device is stalled, one more per
+    stall for what piled up (stalls start at their rate outside a stall)."""
+    f = dev.stalled_share
+    if f <= 0:
+        return flushes_per_ms
+    return (1 - f) * (flushes_per_ms + dev.stall_rate_per_ms)
+
+
+def busy_with_stalls(busy: float, dev: DeviceInRegime) -> float:
+    """Writer busy share once stalls are in: a flush held by a stall keeps the writer busy
+    for the whole stall (the writer has committed to it), so the stalled time counts."""
+    f = dev.stalled_share
+    return busy if f <= 0 else (1 - f) * busy + f

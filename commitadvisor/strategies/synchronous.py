@@ -20,7 +20,13 @@ from commitadvisor.strategies.common import (
     saturation,
     unbounded,
 )
-from commitadvisor.strategies.context import DeviceInRegime, RegimeContext, stall_mixture
+from commitadvisor.strategies.context import (
+    DeviceInRegime,
+    RegimeContext,
+    busy_with_stalls,
+    flushes_with_stalls,
+    stall_mixture,
+)
 
 __all__ = ["evaluate_regime", "writer_response", "device_exposures"]
 
@@ -79,10 +85,14 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         cap = cpu_cap if cpu_cap is not None else ctx.cpus / ctx.cpu_ms_per_commit
         return saturated_result(ctx.regime, ctx.time_share, saturation(
             "cpu", cap, lam, duration, "the host's CPU"), 1)
-    resp, stalled = stall_mixture(resp, dev, lam, ctx.log_bytes)
+    resp, stalled = stall_mixture(resp, dev, lam, ctx.log_bytes,
+                                  dev.flush(batch, ctx.log_bytes), busy)
     ack = L.add_constant(L.convolve(cpu, resp), ctx.wake_cost(batch))
     notes = []
     if stalled:
+        flushes = flushes_with_stalls(flushes, dev)
+        batch = lam / flushes
+        busy = busy_with_stalls(busy, dev)
         notes.append(f"{dev.name} is stalled {stalled:.1%} of the time in this regime; the "
                      "stall is folded in as a time-based event (quasi-static approximation)")
     return assemble(ctx.regime, ctx.time_share, Partial(
@@ -129,17 +139,22 @@ def closed_result(ctx: RegimeContext, dev: DeviceInRegime, chain, exposures,
     if cap is not None and x > 0.97 * cap:
         notes.append(f"the host's CPU is the bottleneck: throughput is near its ceiling of "
                      f"{cap * 1000:.0f} commits/s")
-    resp, stalled = stall_mixture(res.response, dev, x, ctx.log_bytes)
+    resp, stalled = stall_mixture(res.response, dev, x, ctx.log_bytes,
+                                  dev.flush(res.mean_batch, ctx.log_bytes), res.writer_busy)
     ack = L.add_constant(L.convolve(cpu, resp), ctx.wake_cost(res.mean_batch))
+    flushes, batch, busy = res.flushes_per_ms, res.mean_batch, res.writer_busy
     if stalled:
         x = x * (1 - stalled)
+        flushes = flushes_with_stalls(flushes, dev)
+        batch = x / flushes
+        busy = busy_with_stalls(busy, dev)
         notes.append(f"{dev.name} is stalled {stalled:.1%} of the time; folded in as a "
                      "time-based event (quasi-static approximation)")
     return assemble(ctx.regime, ctx.time_share, Partial(
         ack=ack, durable=ack if dev.device.counts_as_durable else None,
         throughput_per_ms=x, exposures=exposures,
-        flushes_per_ms=((dev.name, res.flushes_per_ms),), mean_batch=res.mean_batch,
-        writer_busy=res.writer_busy,
+        flushes_per_ms=((dev.name, flushes),), mean_batch=batch,
+        writer_busy=busy,
         cpu_busy=(x * cpu_ms / ctx.cpus) if ctx.cpus else None,
         copies_at_ack=1 if dev.device.counts_as_durable else 0, notes=tuple(notes)))
 
