@@ -62,6 +62,7 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         return saturated_result(ctx.regime, ctx.time_share, saturation(
             "cpu", cap, lam, duration, "the host's CPU"), 0)
     to_start = L.Uniform0(cycle)
+    writer_busy = flush.mean_ms / cycle
     bound = s.buffer_bytes // ctx.log_bytes
     ack = cpu
     window_host = L.convolve(to_start, flush)
@@ -71,12 +72,15 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         blocked_share = dev.stall_rate_per_ms * float(
             (d.sf(fill_ms + (d.upper_ms - fill_ms) * _U) * (d.upper_ms - fill_ms)).mean()
         ) if d.upper_ms > fill_ms else 0.0
-        window_host = L.mixture([1 - dev.stalled_share, dev.stalled_share],
-                                [window_host, L.convolve(L.residual(d), window_host)])
-        # a stall also holds back the start of the next flush, so what was acknowledged
-        # waits longer before it is handed to the operating system
-        to_start = L.mixture([1 - dev.stalled_share, dev.stalled_share],
-                             [to_start, L.convolve(L.residual(d), to_start)])
+        f = dev.stalled_share
+        pile = dev.flush(lam * d.second_moment_ms2 / d.mean_ms, ctx.log_bytes)
+        in_stall_start, in_stall_host, held_share = stalled_windows(d, cycle, flush, pile)
+        # a flush held by a stall keeps the writer busy from its tick to the stall's end
+        writer_busy = (1 - f) * writer_busy + f * held_share
+        hit, caught = caught_by_stall(d, dev.stall_rate_per_ms, cycle, flush)
+        to_start = L.mixture([1 - f, f], [to_start, in_stall_start])
+        window_host = L.mixture([(1 - f) * (1 - hit), (1 - f) * hit, f],
+                                [window_host, caught, in_stall_host])
         if blocked_share > 0:
             ack = L.mixture([1 - blocked_share, blocked_share],
                             [cpu, L.convolve(cpu, L.residual(d))])
@@ -98,12 +102,146 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         ack=ack, durable=L.convolve(ack, window_host) if durable_ok else None,
         throughput_per_ms=lam,
         exposures=exposures, flushes_per_ms=((dev.name, 1.0 / cycle),),
-        mean_batch=lam * cycle, writer_busy=min(1.0, flush.mean_ms / cycle),
+        mean_batch=lam * cycle, writer_busy=min(1.0, writer_busy),
         cpu_busy=(lam * ctx.cpu_ms_per_commit / ctx.cpus) if ctx.cpus else None,
         copies_at_ack=0, notes=tuple(notes)))
 
 
 _U = np.linspace(0.0005, 0.9995, 1000)
+
+
+def _stall_points(d: L.Latency) -> tuple[np.ndarray, np.ndarray]:
+    """Quadrature of the length-biased stall (density x f(x) / E[D], the stall a random
+    instant falls in): points (ms) and weights, dense in the upper tail."""
+    u = np.concatenate([np.linspace(0.0, 0.9, 181)[1:-1], np.linspace(0.9, 0.99, 91)[:-1],
+                        np.linspace(0.99, 0.99999, 100)])
+    edges = np.concatenate([[0.0], (u[1:] + u[:-1]) / 2, [1.0]])
+    x = np.asarray(d.quantile(u), dtype=float)
+    w = np.diff(edges) * x
+    return x, w / w.sum()
+
+
+def _uniforms_cdf(x: np.ndarray, w: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """cdf at x of the mixture sum_j w_j U(lo_j, hi_j) (weights summing to 1), exactly:
+    sum_j w_j ((x - lo_j)+ - (x - hi_j)+) / (hi_j - lo_j), by sorted knots and running sums
+    (parts narrower than 1e-9 ms count as point masses at lo_j)."""
+    width = hi - lo
+    point = width < 1e-9
+    slope = np.where(point, 0.0, w / np.where(point, 1.0, width))
+    knots = np.concatenate([lo, hi])
+    c = np.concatenate([slope, -slope])
+    order = np.argsort(knots, kind="stable")
+    knots, c = knots[order], c[order]
+    cum_c = np.concatenate([[0.0], np.cumsum(c)])
+    cum_ct = np.concatenate([[0.0], np.cumsum(c * knots)])
+    k = np.searchsorted(knots, x, side="right")
+    out = x * cum_c[k] - cum_ct[k]
+    if point.any():
+        p_order = np.argsort(lo[point])
+        p_at, p_w = lo[point][p_order], np.cumsum(w[point][p_order])
+        j = np.searchsorted(p_at, x, side="right")
+        out = out + np.where(j > 0, p_w[np.maximum(j - 1, 0)], 0.0)
+    return np.clip(out, 0.0, 1.0)
+
+
+def caught_by_stall(d: L.Latency, stall_rate_per_ms: float, interval_ms: float,
+                    flush: L.Latency) -> tuple[float, L.Latency]:
+    """Share of the commits acknowledged outside a stall whose flush a stall holds, and
+    their window to durable (ms).
+
+    A commit waits u ~ U(0, I) for its tick and then its flush S. A stall starting a' before
+    the tick and lasting D > a' holds that flush until it ends: the commit arrived v before
+    the stall (v ~ U(0, I - a'), a' with density 2 (I - a') / I^2) and is durable v + D + S
+    after its acknowledgement. A stall starting during the flush holds it too (chance about
+    rate x E[S]): durable u + D + S. Poisson stall starts; one stall per commit at most.
+    """
+    i = interval_ms
+    u = np.concatenate([np.linspace(0.0, 0.9, 181)[1:-1], np.linspace(0.9, 0.99, 91)[:-1],
+                        np.linspace(0.99, 0.99999, 100)])
+    edges = np.concatenate([[0.0], (u[1:] + u[:-1]) / 2, [1.0]])
+    dur = np.asarray(d.quantile(u), dtype=float)
+    w_d = np.diff(edges)
+    k = 48
+    lead = (np.arange(k) + 0.5) / k * i  # a', the stall's start before the tick
+    w_lead = np.full(k, i / k) * (i - lead) / i  # the chance of a stall there, over the rate
+    dd = np.repeat(dur, k)
+    aa = np.tile(lead, dur.size)
+    w = np.repeat(w_d, k) * np.tile(w_lead, dur.size) * (dd > aa)
+    share_before = stall_rate_per_ms * float(w.sum())
+    share_during = stall_rate_per_ms * flush.mean_ms
+    total = share_before + share_during
+    if total <= 0:
+        return 0.0, flush
+    x = np.linspace(0.0, float(dur.max()) + i, 4097)
+    keep = w > 0
+    w, lo, width = w[keep], dd[keep], (i - aa)[keep]
+    tot = w.sum()
+    hi = lo + width
+    before = L.GridLatency(x, _uniforms_cdf(x, w / tot, lo, hi), float(w @ (lo + hi)) / (2 * tot),
+                           float(w @ (lo**2 + lo * hi + hi**2)) / (3 * tot),
+                           label="caught by a stall")
+    during = L.convolve(L.Uniform0(i), d)
+    held = L.mixture([share_before, share_during], [before, during])
+    return min(total, 0.5), L.convolve(held, flush)
+
+
+def stalled_windows(d: L.Latency, interval_ms: float, flush: L.Latency,
+                    pile: L.Latency) -> tuple[L.Latency, L.Latency, float]:
+    """Exposure windows of a commit acknowledged while the device is stalled: (to the start
+    of the flush that takes it, to that flush's completion, in ms; and the share of stalled
+    time in which a flush is already held, P(a < E)).
+
+    The commit falls at a uniform point of a length-biased stall L (age E, E + R = L; Cox,
+    Renewal Theory, 1962, the inspection paradox); the first flush tick after the stall
+    began comes a ~ U(0, I) later. With one flush at a time:
+    a < E  the tick's flush is already held by the stall: the commit's flush starts when
+           that one completes, R + S, and is durable after its own flush of the pile, + S';
+    E <= a < L  the commit goes into the tick's flush at a - E, durable when it ends, R + S;
+    a >= L  the stall is over before the tick: a - E to start, + S to durable.
+    """
+    length, weight = _stall_points(d)
+    v = (np.arange(48) + 0.5) / 48
+    big_l = np.repeat(length, v.size)
+    w = np.repeat(weight, v.size) / v.size
+    age = big_l * np.tile(v, length.size)
+    rest = big_l - age
+    i = interval_ms
+    w_held = w * np.minimum(age, i) / i  # a < E
+    w_tick = w * np.clip(np.minimum(big_l, i) - age, 0.0, None) / i  # E <= a < L
+    w_late = w * np.clip(i - big_l, 0.0, None) / i  # a >= L: a - E uniform on [R, R + I - L)
+    w_free = w * np.clip(i - age, 0.0, None) / i  # a >= E: a - E uniform on [0, I - E)
+    top = float(big_l.max()) + i
+    x = np.linspace(0.0, top, 4097)
+
+    def points(wt: np.ndarray) -> L.Latency:
+        tot = wt.sum()
+        cdf = _uniforms_cdf(x, wt / tot, rest, rest)
+        return L.GridLatency(x, cdf, float(wt @ rest) / tot, float(wt @ rest**2) / tot,
+                             label="held by a stall")
+
+    def uniforms(wt: np.ndarray, lo: np.ndarray, width: np.ndarray) -> L.Latency:
+        keep = wt > 0
+        wt, lo, width = wt[keep], lo[keep], width[keep]
+        tot = wt.sum()
+        hi = lo + width
+        return L.GridLatency(x, _uniforms_cdf(x, wt / tot, lo, hi),
+                             float(wt @ (lo + hi)) / (2 * tot),
+                             float(wt @ (lo**2 + lo * hi + hi**2)) / (3 * tot),
+                             label="to the tick")
+
+    held = points(w_held)
+    parts_start = [(w_held.sum(), L.convolve(held, flush))]
+    parts_host = [(w_held.sum(), L.convolve(held, flush, pile))]
+    if w_free.sum() > 0:
+        parts_start.append((w_free.sum(), uniforms(w_free, np.zeros_like(age), i - age)))
+    if w_tick.sum() > 0:
+        parts_host.append((w_tick.sum(), L.convolve(points(w_tick), flush)))
+    if w_late.sum() > 0:
+        late = uniforms(w_late, rest, i - big_l)
+        parts_host.append((w_late.sum(), L.convolve(late, flush)))
+    start = L.mixture([p[0] for p in parts_start], [p[1] for p in parts_start])
+    host = L.mixture([p[0] for p in parts_host], [p[1] for p in parts_host])
+    return start, host, float(w_held.sum())
 
 
 def _closed_rate(ctx: RegimeContext) -> float:

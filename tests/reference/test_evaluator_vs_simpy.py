@@ -109,6 +109,33 @@ def test_deferred_exposure_and_littles_law():
     assert r.ack_p99_ms < 0.01 * e.window_p99_ms  # acknowledged long before durable
 
 
+def test_deferred_exposure_through_stalls():
+    """A stall holds the flush at the tick it spans, so commits acknowledged in it wait for
+    the stall's end, not for the end plus another interval. The reference measures each
+    commit's hand-over to the device (process crash) and its durable time (host crash)
+    directly, with stalls that never overlap (the system model's semantics)."""
+    stalls = {"normal": {"per_s": 0.5, "duration": {"kind": "lognormal", "p50_ms": 150.0,
+                                                     "p99_ms": 375.0}}}
+    case = make_case(workload={"commit_rate_per_s": 1000.0, "log_bytes_per_commit": 200},
+                     device_a={**lognormal_device(1.0, 4.0), "stalls": stalls},
+                     strategies=[{"kind": "deferred", "device": "a", "flush_every_ms": 50.0,
+                                  "buffer_bytes": 16_777_216}])
+    r = evaluate(case).strategies[0].regimes[0]
+    sim = R.run_deferred(1000, flush_fn(R.lognormal_sampler(1.0, 4.0), log_bytes=200),
+                         flush_every_ms=50.0, buffer_bytes=16_777_216, log_bytes_per_commit=200,
+                         seed=1, duration_s=1200,
+                         stalls=(0.5, R.lognormal_sampler(150.0, 375.0), "drop"))
+    # about 600 stalls in the run; across seeds at 300 stalls the mean moved 1 % and the p99
+    # 6 % (the p99 rests on the stalled commits), so 3 % and 6 % at twice the stalls. The
+    # model that adds a whole interval after the stall reads 12 % and 33 % high here.
+    proc, host = r.exposure("process_crash"), r.exposure("host_crash")
+    close(proc.window_mean_ms, sim.handed_ms.mean(), 0.03)
+    close(proc.window_p99_ms, np.quantile(sim.handed_ms, 0.99), 0.06)
+    close(host.window_mean_ms, sim.exposure_ms.mean(), 0.03)
+    close(host.window_p99_ms, np.quantile(sim.exposure_ms, 0.99), 0.06)
+    assert r.writer_utilisation == pytest.approx(sim.writer_busy_share, abs=0.01)
+
+
 def test_cpu_station_erlang_c():
     case = make_case(workload={"commit_rate_per_s": 3000.0, "cpus": 2, "cpu_ms_per_commit": 0.5})
     r = evaluate(case).strategies[0].regimes[0]
