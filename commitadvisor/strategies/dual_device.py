@@ -25,7 +25,12 @@ from commitadvisor.strategies.common import (
     saturation,
     unbounded,
 )
-from commitadvisor.strategies.context import RegimeContext, stall_mixture
+from commitadvisor.strategies.context import (
+    RegimeContext,
+    busy_with_stalls,
+    flushes_with_stalls,
+    stall_mixture,
+)
 from commitadvisor.strategies.synchronous import writer_response
 
 __all__ = ["evaluate_regime", "lag_distribution"]
@@ -37,6 +42,11 @@ def lag_distribution(a: L.Latency, b: L.Latency) -> L.GridLatency:
 
     T_a's cdf is tabulated once on a log grid of 2^14 points (ratio about 1.002 a step) and
     read by linear interpolation, rather than evaluated afresh at every (x, T_b) pair."""
+    # integrate over the narrower of the two (its quantile points then resolve it) and read
+    # the wider one's cdf: the midpoint rule over a heavy tail's quantiles would step the
+    # lag's cdf there and read its high percentiles low
+    if float(a.quantile(0.999)) < float(b.quantile(0.999)):
+        a, b = b, a
     u = np.concatenate([(np.arange(400) + 0.5) / 400 * 0.99,
                         0.99 + (np.arange(100) + 0.5) / 100 * 0.0099,
                         0.9999 + (np.arange(100) + 0.5) / 100 * 0.0000999])
@@ -82,7 +92,12 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
             return saturated_result(ctx.regime, ctx.time_share, saturation(
                 f"bandwidth:{name}", bw_cap, lam, duration, f"the bandwidth of {name}"), 0)
         resp, fl, batch, wb = writer_response(ctx, dev, lam)
-        resp, _ = stall_mixture(resp, dev, lam, ctx.log_bytes)
+        resp, stalled = stall_mixture(resp, dev, lam, ctx.log_bytes,
+                                      dev.flush(batch, ctx.log_bytes), wb)
+        if stalled:
+            fl = flushes_with_stalls(fl, dev)
+            batch = lam / fl
+            wb = busy_with_stalls(wb, dev)
         responses[name] = resp
         flushes.append((name, fl))
         busy = max(busy, wb)
@@ -107,6 +122,17 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         copies = 1
         notes.append(f"only {only} counts as durable, so only its flush acknowledges")
     ack = L.add_constant(L.convolve(cpu, writer), ctx.wake_cost(batch_mean))
+    # durable once the first copy that counts is on its device (which for "both" comes
+    # before the acknowledgement)
+    if s.ack_after == "both" and all(durable.values()):
+        first_durable = L.add_constant(L.convolve(cpu, L.minimum(ta, tb, share)),
+                                       ctx.wake_cost(batch_mean))
+    elif s.ack_after == "both" and any(durable.values()):
+        only = a_name if durable[a_name] else b_name
+        first_durable = L.add_constant(L.convolve(cpu, responses[only]),
+                                       ctx.wake_cost(batch_mean))
+    else:
+        first_durable = ack
     lag = lag_distribution(ta, tb)
     if not any(durable.values()):
         host = unbounded("host_crash", "neither device counts as durable")
@@ -124,7 +150,7 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
     else:
         dev_loss = unbounded("device_loss", "only one device counts as durable")
     return assemble(ctx.regime, ctx.time_share, Partial(
-        ack=ack, durable=ack if copies else None, throughput_per_ms=lam,
+        ack=ack, durable=first_durable if copies else None, throughput_per_ms=lam,
         exposures=(safe("process_crash"), host, dev_loss), flushes_per_ms=tuple(flushes),
         mean_batch=batch_mean, writer_busy=busy,
         cpu_busy=(lam * ctx.cpu_ms_per_commit / ctx.cpus) if ctx.cpus else None,
