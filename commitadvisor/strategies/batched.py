@@ -50,14 +50,19 @@ class Capped(L.Latency):
         return np.minimum(self.base.quantile(q), self.cap_ms)
 
     @property
+    def _reach_ms(self) -> float:
+        """Where the integrand ends: the cap, or where the base is all but certainly over."""
+        return float(min(self.cap_ms, self.base.quantile(1 - 1e-12)))
+
+    @property
     def mean_ms(self) -> float:
-        x = np.linspace(0, self.cap_ms, 1025)
+        x = np.linspace(0, self._reach_ms, 1025)
         sf = self.base.sf(x)
         return float(np.sum(np.diff(x) * (sf[1:] + sf[:-1]) / 2))
 
     @property
     def second_moment_ms2(self) -> float:
-        x = np.linspace(0, self.cap_ms, 1025)
+        x = np.linspace(0, self._reach_ms, 1025)
         g = 2 * x * self.base.sf(x)
         return float(np.sum(np.diff(x) * (g[1:] + g[:-1]) / 2))
 
@@ -138,7 +143,7 @@ def _gather_after_flush(flush: L.Latency, lam: float, k: int, window: float,
 
     s = np.maximum(np.asarray(flush.quantile(_U_FLUSH), dtype=float), 1e-12)
     w = _W_FLUSH * (s if seen_by_commit else 1.0)
-    x = np.linspace(0.0, window, 257)
+    x = np.linspace(0.0, _gather_span(lam, k, window), 257)
     # pending commits at the flush's end below the target (beyond kk: chance under 1e-12)
     n = np.arange(1, _counts_needed(lam, float(s.max()), k))
     if seen_by_commit:
@@ -177,7 +182,7 @@ def _arrival_in_gathering(lam: float, left_ms: np.ndarray, need: np.ndarray,
     gathering)."""
     from scipy.special import pdtrc
 
-    x = np.linspace(0.0, window, 257)
+    x = np.linspace(0.0, _gather_span(lam, int(need.max()) + 1, window), 257)
     cap = _counts_needed(lam, window, int(need.max()) + 1)
     i = np.arange(cap + 1)
     # running sums of P(Poisson(lambda t) > i): S[q] = E[min(N, q + 1)]
@@ -216,15 +221,25 @@ def _states_after_flush(flush: L.Latency, lam: float, k: int, window: float):
     w = w / w.sum()
     n = np.arange(1, _counts_needed(lam, float(s.max()), k))
     pn = poisson.pmf(n[None, :], lam * s[:, None]) / -np.expm1(-lam * s)[:, None]
-    x = np.linspace(0.0, window, 129)
+    x = np.linspace(0.0, _gather_span(lam, k, window), 129)
     above = np.clip((window - x)[None, :] / s[:, None], 0.0, 1.0)  # (S, x)
     sf = above[:, None, :] ** n[None, :, None]  # (S, n, x): P(R > x)
     mass = np.concatenate([1.0 - sf[:, :, :1], sf[:, :, :-1] - sf[:, :, 1:]], axis=2)
+    mass[:, :, -1] += sf[:, :, -1]  # a window left beyond the span acts as the span
     joint = np.einsum("s,sn,snx->nx", w, pn, mass)  # (n, x)
     mid = np.concatenate([[0.0], (x[1:] + x[:-1]) / 2])
+    mid[-1] = x[-1]
     left = np.broadcast_to(mid[None, :], joint.shape).ravel()
     need = np.broadcast_to((k - n)[:, None], joint.shape).ravel()
     return left, need, joint.ravel()
+
+
+def _gather_span(lam: float, k: int, window: float) -> float:
+    """The longest a gathering can matter (ms): the window, or where k - 1 arrivals are
+    all but certain to have come (Gamma(k - 1, lambda) beyond it has chance 1e-12)."""
+    from scipy.stats import gamma
+
+    return float(min(window, gamma.isf(1e-12, max(k - 1, 1), scale=1.0 / lam)))
 
 
 def _counts_needed(lam: float, longest_ms: float, k: int) -> int:
@@ -253,8 +268,9 @@ def _wait_from_flush_arrival(flush: L.Latency, lam: float, k: int, window: float
     w = np.repeat(w_s, v.size) / w_s.sum() / v.size
     y = big_s * np.tile(v, s.size)
     r = big_s - y
-    top = max(float(big_s.max()), window)
-    x = np.unique(np.concatenate([np.linspace(0.0, window, 129), np.linspace(0.0, top, 257)]))
+    span = _gather_span(lam, k, window)
+    top = max(float(big_s.max()), span)
+    x = np.unique(np.concatenate([np.linspace(0.0, span, 129), np.linspace(0.0, top, 257)]))
     # counts beyond kk have a chance under 1e-12: the last row and column stand for them
     kk = _counts_needed(lam, float(big_s.max()), k)
     m1 = np.arange(kk)  # commits before it; the last row stands for kk - 1 or more
