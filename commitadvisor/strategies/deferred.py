@@ -50,18 +50,22 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
             f"the bandwidth of {dev.name} (the log buffer fills and commits stall)"), 0)
     interval = s.flush_every_ms
     flush = dev.flush(lam * interval, ctx.log_bytes)
-    cycle = max(interval, flush.mean_ms)
-    if flush.mean_ms > interval:
-        notes.append(f"a flush ({flush.mean_ms:.3g} ms) outlasts the interval ({interval:g} ms): "
-                     "flushes run back to back and each carries more")
+    gap, cycle = _gap(interval, flush)
+    if cycle > interval * 1.0001:
         flush = dev.flush(lam * cycle, ctx.log_bytes)
-        cycle = max(interval, flush.mean_ms)
+        gap, cycle = _gap(interval, flush)
+        over = float(flush.sf(interval))
+        notes.append(f"{over:.1%} of flushes outlast the {interval:g} ms interval: the next "
+                     "one starts when it ends and carries more (flush starts every "
+                     f"{cycle:.3g} ms on average)")
     cpu = ctx.cpu_wait(lam)
     if cpu is None:
         cap = ctx.cpus / ctx.cpu_ms_per_commit
         return saturated_result(ctx.regime, ctx.time_share, saturation(
             "cpu", cap, lam, duration, "the host's CPU"), 0)
-    to_start = L.Uniform0(cycle)
+    # a commit waits for the next flush start: the equilibrium residual of the gap between
+    # starts (uniform on [0, I] while no flush outlasts the interval)
+    to_start = L.Uniform0(interval) if gap is None else L.residual(gap)
     writer_busy = flush.mean_ms / cycle
     bound = s.buffer_bytes // ctx.log_bytes
     ack = cpu
@@ -108,6 +112,35 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
 
 
 _U = np.linspace(0.0005, 0.9995, 1000)
+
+
+def _gap(interval_ms: float, flush: L.Latency) -> tuple[L.Latency | None, float]:
+    """The gap between flush starts and its mean (ms); None for the gap when flushes outlast
+    the interval with chance under 1e-9 (every gap is then I).
+
+    Flushes start at the ticks k I; one that outlasts the wait for the next tick makes the
+    next start when it ends, off the grid, and the writer goes back to the grid after it. A
+    start on the grid is followed by a gap max(I, S); a start off the grid by max(V, S), V
+    the wait from it to the next tick, V = I ceil(S0 / I) - S0 for the flush S0 that ran
+    late. Starts go off the grid with chance P(S > I) from the grid and P(S > V) from off
+    it (a two-state chain; V's law is taken from one late flush, an approximation)."""
+    i = interval_ms
+    late = float(flush.sf(i))
+    if late < 1e-9:
+        return None, i
+    u = float(flush.cdf(i)) + late * (np.arange(400) + 0.5) / 400
+    s0 = np.asarray(flush.quantile(np.minimum(u, 1 - 1e-12)), dtype=float)
+    v = np.clip(i * np.ceil(s0 / i) - s0, 0.0, i)
+    x = np.linspace(0.0, i, 1025)
+    w = np.full(v.size, 1.0 / v.size)
+    wait = L.GridLatency(x, _uniforms_cdf(x, w, v, v), float(v.mean()), float((v**2).mean()),
+                         label="wait to the next tick")
+    on = L.maximum(L.Fixed(i), flush)
+    off = L.maximum(wait, flush)
+    late_off = float(np.mean(flush.sf(v)))
+    p_off = late / (1 - late_off + late)
+    gap = L.mixture([1 - p_off, p_off], [on, off])
+    return gap, gap.mean_ms
 
 
 def _stall_points(d: L.Latency) -> tuple[np.ndarray, np.ndarray]:
