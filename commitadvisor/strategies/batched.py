@@ -322,8 +322,12 @@ def _cycle(dev, ctx: RegimeContext, lam: float, k: int, window: float):
     """Gathering, flush and cycle at rate lam (fixed point on the batch's transfer time)."""
     gather = Capped(L.Gamma(k - 1, 1.0 / lam), window)
     batch = 1.0 + lam * gather.mean_ms
+    extra = None
     for _ in range(6):
         flush = dev.flush(batch, ctx.log_bytes)
+        if extra is not None and abs(flush.mean_ms - extra) <= 1e-9 * flush.mean_ms:
+            break  # the batch no longer changes the flush: the fixed point is reached
+        extra = flush.mean_ms
         p0 = flush.laplace(lam)
         after = _gather_after_flush(flush, lam, k, window, False)
         cycle = p0 * (1.0 / lam + gather.mean_ms) + (1 - p0) * after.mean_ms + flush.mean_ms
