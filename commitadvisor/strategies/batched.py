@@ -101,10 +101,11 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
     in_first = _arrival_in_gathering(lam, np.array([window]), np.array([k - 1]),
                                      np.array([1.0]), window)
     in_after = _arrival_in_gathering(lam, *_states_after_flush(flush, lam, k, window), window)
-    parts = [L.convolve(gather, flush), L.convolve(in_first, flush),
-             L.convolve(in_after, flush) if after.mean_ms > 0 else flush,
-             L.convolve(_wait_from_flush_arrival(flush, lam, k, window), flush)]
-    resp = L.mixture(shares, parts)
+    # every commit then waits the flush that takes it, independent of what came before:
+    # one convolution of the mixed wait with the flush
+    waits = [gather, in_first, in_after if after.mean_ms > 0 else L.Fixed(0.0),
+             _wait_from_flush_arrival(flush, lam, k, window)]
+    resp = L.convolve(L.mixture(shares, waits), flush)
     busy = flush.mean_ms / cycle
     flushes = 1.0 / cycle
     resp, stalled = stall_mixture(resp, dev, lam, ctx.log_bytes, flush, busy)
@@ -263,7 +264,7 @@ def _wait_from_flush_arrival(flush: L.Latency, lam: float, k: int, window: float
     u_s = _U_FLUSH[::2]
     s = np.maximum(np.asarray(flush.quantile(u_s), dtype=float), 1e-12)
     w_s = np.diff(np.concatenate([[0.0], (u_s[1:] + u_s[:-1]) / 2, [1.0]])) * s
-    v = (np.arange(12) + 0.5) / 12
+    v = (np.arange(8) + 0.5) / 8
     big_s = np.repeat(s, v.size)
     w = np.repeat(w_s, v.size) / w_s.sum() / v.size
     y = big_s * np.tile(v, s.size)
@@ -309,8 +310,9 @@ def _wait_from_flush_arrival(flush: L.Latency, lam: float, k: int, window: float
     for j in range(1, kk):
         power = power * frac
         a[:, j, :] = power
-    a = np.maximum(a, below[:, None, :])
-    sf = np.einsum("p,pm,pmx,pmx->x", w, p1, a, c)
+    np.maximum(a, below[:, None, :], out=a)
+    a *= c
+    sf = (w[:, None] * p1).reshape(-1) @ a.reshape(-1, x.size)
     cdf = np.maximum.accumulate(np.clip(1.0 - sf, 0.0, 1.0))
     mean = float(np.sum(np.diff(x) * (sf[1:] + sf[:-1]) / 2))
     g = 2 * x * sf
