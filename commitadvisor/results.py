@@ -134,7 +134,8 @@ class Evaluation:
         return next(s for s in self.strategies if s.name == name)
 
 
-_DISTRIBUTIONS = {"ack_latency", "durable_latency", "window"}  # distribution objects, not JSON figures
+# distribution objects, not JSON figures
+_DISTRIBUTIONS = {"ack_latency", "durable_latency", "window"}
 
 
 def to_plain(obj: Any) -> Any:

@@ -157,14 +157,22 @@ def _gather_after_flush(flush: L.Latency, lam: float, k: int, window: float,
     left = np.clip((window - x)[None, :] / s[:, None], 0.0, 1.0)  # (S, x)
     target = pdtr((k - n - 1)[:, None], lam * x[None, :])  # P(Gamma(k - n) > x), (n, x)
     sf = np.einsum("s,sn,snx,nx->x", w, pn, left[:, None, :] ** n[None, :, None], target)
-    cdf = np.clip(1.0 - sf, 0.0, 1.0)
-    cdf[-1] = 1.0
+    return _from_sf(x, sf, "rest of gathering", ends=True)
+
+
+def _from_sf(x: np.ndarray, sf: np.ndarray, label: str, ends: bool) -> L.Latency:
+    """A law from its survival function on the grid x (ms): moments by the trapezoid rule,
+    E[X] = integral of sf, E[X^2] = integral of 2 x sf; ``ends``: nothing lies beyond x."""
+    sf = np.clip(sf, 0.0, 1.0)
+    cdf = np.maximum.accumulate(1.0 - sf)
+    if ends:
+        cdf[-1] = 1.0
     mean = float(np.sum(np.diff(x) * (sf[1:] + sf[:-1]) / 2))
     g = 2 * x * sf
     second = float(np.sum(np.diff(x) * (g[1:] + g[:-1]) / 2))
     if mean <= 1e-12:
         return L.Fixed(0.0)
-    return L.GridLatency(x, np.maximum.accumulate(cdf), mean, second, label="rest of gathering")
+    return L.GridLatency(x, cdf, mean, second, label=label)
 
 
 def _arrival_in_gathering(lam: float, left_ms: np.ndarray, need: np.ndarray,
@@ -200,15 +208,7 @@ def _arrival_in_gathering(lam: float, left_ms: np.ndarray, need: np.ndarray,
     if norm <= 0:
         return L.Fixed(0.0)
     body = np.where(x[None, :] < left_ms[:, None], f_left[:, None] - f_x, 0.0)
-    sf = np.clip(weight @ body / norm, 0.0, 1.0)
-    cdf = np.maximum.accumulate(1.0 - sf)
-    cdf[-1] = 1.0
-    mean = float(np.sum(np.diff(x) * (sf[1:] + sf[:-1]) / 2))
-    g = 2 * x * sf
-    second = float(np.sum(np.diff(x) * (g[1:] + g[:-1]) / 2))
-    if mean <= 1e-12:
-        return L.Fixed(0.0)
-    return L.GridLatency(x, cdf, mean, second, label="rest of gathering, seen on arrival")
+    return _from_sf(x, weight @ body / norm, "rest of gathering, seen on arrival", ends=True)
 
 
 def _states_after_flush(flush: L.Latency, lam: float, k: int, window: float):
@@ -313,11 +313,7 @@ def _wait_from_flush_arrival(flush: L.Latency, lam: float, k: int, window: float
     np.maximum(a, below[:, None, :], out=a)
     a *= c
     sf = (w[:, None] * p1).reshape(-1) @ a.reshape(-1, x.size)
-    cdf = np.maximum.accumulate(np.clip(1.0 - sf, 0.0, 1.0))
-    mean = float(np.sum(np.diff(x) * (sf[1:] + sf[:-1]) / 2))
-    g = 2 * x * sf
-    second = float(np.sum(np.diff(x) * (g[1:] + g[:-1]) / 2))
-    return L.GridLatency(x, cdf, mean, second, label="to the next flush")
+    return _from_sf(x, sf, "to the next flush", ends=False)
 
 
 def _cycle(dev, ctx: RegimeContext, lam: float, k: int, window: float):
