@@ -283,18 +283,21 @@ class Writer:
     def flush_at(self, rows: np.ndarray, start: np.ndarray, lo: np.ndarray,
                  hi: np.ndarray) -> np.ndarray:
         """Start flushes carrying join numbers [lo, hi) at ``start`` in the listed lanes
-        (the caller has decided both); returns their ends."""
+        (the caller has decided both); returns their ends. The flush log gets (rows, start,
+        end, lo, hi), and for the deferred writer also the previous flush's lo and end."""
         batch = hi - lo
         work = self._work(rows.size, start, batch)
         end = self.stalls.finish(rows, start, work)
-        prev_lo = self.lo[rows]
-        prev_e = self.e[rows]
+        if self.mode == DEFERRED:
+            # only the deferred writer's acks look back at the flush before (its buffer cap)
+            self.log.add(rows, start, end, lo, hi, self.lo[rows], self.e[rows])
+        else:
+            self.log.add(rows, start, end, lo, hi)
         self.lo[rows] = lo
         self.hi[rows] = hi
         self.g[rows] = start
         self.e[rows] = end
         self.flushes += rows.size
-        self.log.add(rows, start, end, lo, hi, prev_lo, prev_e)
         return end
 
     def close(self, rows: np.ndarray) -> tuple[np.ndarray, ...]:

@@ -274,7 +274,15 @@ def run_open(strategy, host: HostParams, devices: list[DeviceParams], schedule: 
         w.stalls.start(t_init, stationary)
     comb = Combine(strategy, devices)
     nd = len(writers)
-    fields = ["J", "A"] + ([f"{x}{d}" for d in range(nd) for x in "Gea"] if nd > 1 else [])
+    cpus = host.cpus
+    wake_ms, wake_c = host.wake_ms, host.wake_servers
+    # Fields kept per buffered join: without a CPU station the arrival is the join time;
+    # with two devices each one's flush end and ack (the same without a wake cost; the
+    # flush start is not needed, as Combine reads it for the deferred writer only)
+    arrival = "A" if cpus else "J"
+    per_dev = "ea" if wake_ms > 0 else "e"
+    fields = ["J"] + (["A"] if cpus else []) + (
+        [f"{x}{d}" for d in range(nd) for x in per_dev] if nd > 1 else [])
     buf = _Buffer(n, tuple(fields), t_init)
     exp = Pool(lambda k: rng.exponential(1.0, k))
     uni = Pool(lambda k: rng.random(k))
@@ -283,9 +291,7 @@ def run_open(strategy, host: HostParams, devices: list[DeviceParams], schedule: 
     rmax = max(float(rates[r]) for r in present)
     thin = schedule.fixed is None and len({float(rates[r]) for r in present}) > 1
     t_last = t_init.astype(float).copy()
-    cpus = host.cpus
     cpu = _Cpu(host, schedule, exp, t_init, recorder) if cpus else None
-    wake_ms, wake_c = host.wake_ms, host.wake_servers
     total = [0]
     resolved = np.zeros(n, dtype=np.int64)
     while True:
@@ -309,19 +315,20 @@ def run_open(strategy, host: HostParams, devices: list[DeviceParams], schedule: 
             if cpu is not None:
                 join, origin = cpu.serve(arr, known)
             else:
-                join, origin = arr, arr
+                join, origin = arr, None
             buf.known = known
             last = False
         keep_from = writers[0].hi if nd == 1 else resolved
-        buf.append({"J": join, "A": origin}, keep_from)
+        buf.append({"J": join, "A": origin} if cpus else {"J": join}, keep_from)
         for d, w in enumerate(writers):
             _flush_steps(w, buf)
             cols = w.log.drain()
             if cols is not None:
-                _flushed(d, cols, w, buf, comb, recorder, nd, wake_ms, wake_c, total)
+                _flushed(d, cols, w, buf, comb, recorder, nd, wake_ms, wake_c, total,
+                         arrival)
         if nd > 1:
             top = np.minimum(writers[0].hi, writers[1].hi)
-            _resolve_dual(buf, resolved, top, comb, recorder, total)
+            _resolve_dual(buf, resolved, top, comb, recorder, total, arrival, wake_ms > 0)
             resolved = top.copy()
         if progress is not None:
             progress(float(np.clip((t_last - t_init) / (t_stop - t_init), 0, 1).mean()))
@@ -364,8 +371,8 @@ def _flush_steps(w: Writer, buf: _Buffer) -> None:
         w.flush_at(cand, start, lo, hi)
 
 
-def _flushed(d, cols, w, buf, comb, recorder, nd, wake_ms, wake_c, total) -> None:
-    rows, start, end, lo, hi, prev_lo, prev_e = cols
+def _flushed(d, cols, w, buf, comb, recorder, nd, wake_ms, wake_c, total, arrival) -> None:
+    rows, start, end, lo, hi = cols[:5]
     recorder.on_flush(d, rows, start, end, hi - lo)
     lanes, k, pos, which = expand(rows, lo, hi)
     if lanes.size == 0:
@@ -373,6 +380,7 @@ def _flushed(d, cols, w, buf, comb, recorder, nd, wake_ms, wake_c, total) -> Non
     col = buf.flat(lanes, k - buf.base[lanes])
     e = end[which]
     if w.mode == DEFERRED:
+        prev_lo, prev_e = cols[5:]
         j = buf.data["J"][col]
         blocked = (k - w.cap) >= prev_lo[which]
         a = np.where(blocked, np.maximum(j, prev_e[which]), j)
@@ -381,24 +389,23 @@ def _flushed(d, cols, w, buf, comb, recorder, nd, wake_ms, wake_c, total) -> Non
     if nd == 1:
         ack, durable, safe = comb([start[which]], [e], [a])
         total[0] += int(lanes.size)
-        recorder.on_commits(lanes, buf.data["A"][col], ack, durable, safe)
+        recorder.on_commits(lanes, buf.data[arrival][col], ack, durable, safe)
         return
-    buf.data[f"G{d}"][col] = start[which]
     buf.data[f"e{d}"][col] = e
-    buf.data[f"a{d}"][col] = a
+    if wake_ms > 0:
+        buf.data[f"a{d}"][col] = a
 
 
-def _resolve_dual(buf, frm, top, comb, recorder, total) -> None:
+def _resolve_dual(buf, frm, top, comb, recorder, total, arrival, wake) -> None:
     lanes, k, _, _ = expand(buf.rows, frm, top)
     if lanes.size == 0:
         return
     col = buf.flat(lanes, k - buf.base[lanes])
-    g = [buf.data[f"G{d}"][col] for d in range(2)]
     e = [buf.data[f"e{d}"][col] for d in range(2)]
-    a = [buf.data[f"a{d}"][col] for d in range(2)]
-    ack, durable, safe = comb(g, e, a)
+    a = [buf.data[f"a{d}"][col] for d in range(2)] if wake else e
+    ack, durable, safe = comb([None, None], e, a)
     total[0] += int(lanes.size)
-    recorder.on_commits(lanes, buf.data["A"][col], ack, durable, safe)
+    recorder.on_commits(lanes, buf.data[arrival][col], ack, durable, safe)
 
 
 class _Cpu:
