@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -139,3 +140,24 @@ def test_closed_throughput_approaches_the_cpu_ceiling():
     ceiling = 2 / 0.5e-3
     assert xs[0] < xs[1] < xs[2] <= ceiling * 1.0001
     assert xs[2] > 0.9 * ceiling
+
+
+def test_blended_at_risk_quantile_is_that_of_the_time_mixture():
+    """Two regimes with fixed windows: the count at a random instant is Poisson(lambda_1 w_1)
+    with chance t_1 and Poisson(lambda_2 w_2) otherwise; its p99.9 from scipy.stats.poisson
+    directly (no quadrature) must equal the evaluator's."""
+    from scipy.stats import poisson
+
+    from commitadvisor import latency as L
+    from commitadvisor.strategies.common import at_risk_quantile, mixed_poisson_quantile
+
+    parts = [(0.9, L.Fixed(100.0), 1.2, None), (0.1, L.Fixed(600.0), 1.2, None)]
+    n = np.arange(0, 2000)
+    cdf = 0.9 * poisson.cdf(n, 120.0) + 0.1 * poisson.cdf(n, 720.0)
+    expected = int(n[np.searchsorted(cdf, 0.999)])
+    assert at_risk_quantile(parts, 0.999) == expected
+    assert mixed_poisson_quantile(L.Fixed(100.0), 1.2, 0.999) == int(poisson.ppf(0.999, 120.0))
+    # a hard bound caps its part: never more than 150 commits in the long regime
+    capped = [(0.9, L.Fixed(100.0), 1.2, None), (0.1, L.Fixed(600.0), 1.2, 150.0)]
+    cdf = 0.9 * poisson.cdf(n, 120.0) + 0.1 * np.where(n >= 150, 1.0, poisson.cdf(n, 720.0))
+    assert at_risk_quantile(capped, 0.999) == int(n[np.searchsorted(cdf, 0.999)])
