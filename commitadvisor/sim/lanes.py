@@ -206,7 +206,9 @@ class _Buffer:
             out = np.empty(total)
             out[dst_keep] = old[src]
             add = cols.get(f)
-            out[dst_new] = add[ok] if add is not None else np.inf
+            if add is not None:
+                out[dst_new] = add[ok]
+            # other fields of new joins are written by their flushes before being read
             self.data[f] = out
         self.base = keep_from.copy()
         self.n = n
