@@ -321,9 +321,10 @@ def evaluate(
     comparison = None
     if verify:
         from commitadvisor.simulate import simulate_case
-        from commitadvisor.verify import compare
+        from commitadvisor.verify import compare, mean_noise
 
-        comparison = compare(ev, simulate_case(c, seed=seed, commits=commits).evaluation)
+        simulation = simulate_case(c, seed=seed, commits=commits)
+        comparison = compare(ev, simulation.evaluation, noise=mean_noise(simulation))
     if fmt is Fmt.json:
         import json
 

@@ -15,6 +15,9 @@ Default tolerances (relative, unless the name says otherwise):
   commits, so it is the noisiest figure of a simulation
 - utilisations (writer, CPU): 0.02 absolute
 - floor: differences under 0.005 ms (5 microseconds) or 0.5 commits are not flagged.
+
+Given the simulation's own standard error of each ack mean (``mean_noise``), a flagged mean
+whose difference is within three of them says so in its note; it stays flagged.
 """
 
 from __future__ import annotations
@@ -23,7 +26,7 @@ from dataclasses import dataclass
 
 from commitadvisor.results import FAILURE_KINDS, Evaluation, RegimeResult
 
-__all__ = ["Tolerances", "ComparisonRow", "Comparison", "compare"]
+__all__ = ["Tolerances", "ComparisonRow", "Comparison", "compare", "mean_noise"]
 
 
 @dataclass(frozen=True)
@@ -155,10 +158,44 @@ def _regime_rows(name: str, a: RegimeResult, s: RegimeResult, t: Tolerances):
                         a.copies_at_ack != s.copies_at_ack)
 
 
+def mean_noise(simulation) -> dict[tuple[str, str], float]:
+    """Relative standard error of the simulated ack mean per (strategy, regime), from the
+    independent lanes of each steady segment of a ``simulate.Simulation``."""
+    out = {}
+    for seg in simulation.segments:
+        se = getattr(seg, "ack_mean_se_ms", None)
+        if not se:
+            continue
+        try:
+            r = simulation.evaluation.strategy(seg.strategy).regime(seg.regime)
+        except (StopIteration, KeyError, ValueError):
+            continue
+        if r.ack_mean_ms:
+            out[(seg.strategy, seg.regime)] = se / r.ack_mean_ms
+    return out
+
+
+def _with_noise(row: ComparisonRow, rel_se: float | None) -> ComparisonRow:
+    """A flagged mean whose difference is within three of the simulation's own standard
+    errors says so (it stays flagged: the tolerance does not widen)."""
+    if (not row.flagged or rel_se is None or row.relative_difference is None
+            or row.figure not in ("ack_mean_ms", "durable_mean_ms")):
+        return row
+    if abs(row.relative_difference) > 3 * rel_se:
+        return row
+    from dataclasses import replace
+
+    return replace(row, note=f"within 3 standard errors of the simulation (±{rel_se:.1%}): "
+                             "rerun with more --commits to tell")
+
+
 def compare(analytic: Evaluation, simulated: Evaluation,
-            tolerances: Tolerances | None = None) -> Comparison:
+            tolerances: Tolerances | None = None,
+            noise: dict[tuple[str, str], float] | None = None) -> Comparison:
     """Every figure of every strategy and regime (and the blend), analytic against
-    simulated; see the module docstring for the tolerances."""
+    simulated; see the module docstring for the tolerances. ``noise``: the simulated ack
+    mean's relative standard error per (strategy, regime) (see :func:`mean_noise`), used
+    only to annotate flagged means."""
     t = tolerances or Tolerances()
     rows: list[ComparisonRow] = []
     sim_names = {s.name for s in simulated.strategies}
@@ -175,5 +212,6 @@ def compare(analytic: Evaluation, simulated: Evaluation,
                 rows.append(ComparisonRow(sa.name, ra.regime, "regime", None, None, None,
                                           "must agree", True, "not simulated"))
                 continue
-            rows.extend(_regime_rows(sa.name, ra, rs, t))
+            se = (noise or {}).get((sa.name, ra.regime))
+            rows.extend(_with_noise(r, se) for r in _regime_rows(sa.name, ra, rs, t))
     return Comparison(rows=tuple(rows), seed=simulated.seed, tolerances=t)

@@ -71,3 +71,28 @@ def test_utilisation_is_compared_in_absolute_terms(ev):
     assert compare(ev, _with(ev, "sync", writer_utilisation=u + 0.015)).agrees
     c = compare(ev, _with(ev, "sync", writer_utilisation=u + 0.03))
     assert [r.figure for r in c.flagged] == ["writer_utilisation"]
+
+
+def test_a_flagged_mean_within_the_simulations_noise_says_so_and_stays_flagged(ev):
+    r0 = ev.strategy("sync").regimes[0]
+    off = _with(ev, "sync", ack_mean_ms=r0.ack_mean_ms * 1.05)
+    key = ("sync", r0.regime)
+    noisy = compare(off, ev, noise={key: 0.02})  # 5 % apart, standard error 2 %
+    row = next(r for r in noisy.flagged if r.figure == "ack_mean_ms")
+    assert row.flagged and "standard errors" in row.note
+    quiet = compare(off, ev, noise={key: 0.005})  # 5 % is ten standard errors
+    row = next(r for r in quiet.flagged if r.figure == "ack_mean_ms")
+    assert row.flagged and row.note == ""
+
+
+def test_mean_noise_reads_the_segments_standard_errors():
+    from commitadvisor.verify import mean_noise
+
+    d = copy.deepcopy(SMALL)
+    d["regimes"] = []
+    sim = simulate_case(parse_case(d, "t"), seed=2, commits=5_000)
+    noise = mean_noise(sim)
+    assert noise and all(0 < v < 1 for v in noise.values())
+    seg = next(s for s in sim.segments if (s.strategy, s.regime) in noise)
+    r = sim.evaluation.strategy(seg.strategy).regime(seg.regime)
+    assert noise[(seg.strategy, seg.regime)] == pytest.approx(seg.ack_mean_se_ms / r.ack_mean_ms)
