@@ -538,7 +538,7 @@ def _signoff_verification(c, ev, seed: int, no_verify: bool, names: tuple[str, .
 
     from commitadvisor.signoff import Verification, verification_from
     from commitadvisor.simulate import simulate_case
-    from commitadvisor.verify import compare
+    from commitadvisor.verify import compare, mean_noise
 
     if no_verify:
         return Verification("skipped", seed)
@@ -547,7 +547,9 @@ def _signoff_verification(c, ev, seed: int, no_verify: bool, names: tuple[str, .
     sub_ev = replace(ev, strategies=tuple(s for s in ev.strategies if s.name in names))
     sys.stderr.write(f"checking {', '.join(names)} with the simulator (seed {seed}); this "
                      "takes a while\n")
-    return verification_from(compare(sub_ev, simulate_case(sub_case, seed=seed).evaluation))
+    simulation = simulate_case(sub_case, seed=seed)
+    return verification_from(compare(sub_ev, simulation.evaluation,
+                                     noise=mean_noise(simulation)))
 
 
 # --------------------------------------------------------------- the simulator
