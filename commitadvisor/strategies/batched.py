@@ -130,29 +130,22 @@ _U_FLUSH = np.concatenate([np.linspace(0.0, 0.9, 73)[1:-1], np.linspace(0.9, 0.9
 _W_FLUSH = np.diff(np.concatenate([[0.0], (_U_FLUSH[1:] + _U_FLUSH[:-1]) / 2, [1.0]]))
 
 
-def _gather_after_flush(flush: L.Latency, lam: float, k: int, window: float,
-                        seen_by_commit: bool) -> L.Latency:
+def _gather_after_flush(flush: L.Latency, lam: float, k: int, window: float) -> L.Latency:
     """What is left of the gathering when a flush of length S ends with n >= 1 commits
     pending (ms). The oldest pending commit joined at t1, the first of n uniform points of
     the flush, so the window has R = t1 + window - S left, P(R > x) = min(1, (window - x)/S)^n;
     the target is reached after Gamma(k - n, lambda) more, or at once when n >= k:
-    P(G' > x) = P(R > x) P(Gamma > x), averaged over S and n ~ Poisson(lambda S) given n >= 1.
-    ``seen_by_commit``: the flush as a commit arriving during it sees it (length-biased, and
-    the commit itself is one of the n)."""
+    P(G' > x) = P(R > x) P(Gamma > x), averaged over S and n ~ Poisson(lambda S) given n >= 1."""
     from scipy.special import pdtr
     from scipy.stats import poisson
 
     s = np.maximum(np.asarray(flush.quantile(_U_FLUSH), dtype=float), 1e-12)
-    w = _W_FLUSH * (s if seen_by_commit else 1.0)
     x = np.linspace(0.0, _gather_span(lam, k, window), 257)
     # pending commits at the flush's end below the target (beyond kk: chance under 1e-12)
     n = np.arange(1, _counts_needed(lam, float(s.max()), k))
-    if seen_by_commit:
-        pn = poisson.pmf(n[None, :] - 1, lam * s[:, None])
-    else:
-        pn = poisson.pmf(n[None, :], lam * s[:, None])
-        w = w * -np.expm1(-lam * s)  # the flush saw at least one arrival
-        pn = pn / -np.expm1(-lam * s)[:, None]
+    seen = -np.expm1(-lam * s)  # the flush saw at least one arrival
+    pn = poisson.pmf(n[None, :], lam * s[:, None]) / seen[:, None]
+    w = _W_FLUSH * seen
     w = w / w.sum()
     left = np.clip((window - x)[None, :] / s[:, None], 0.0, 1.0)  # (S, x)
     target = pdtr((k - n - 1)[:, None], lam * x[None, :])  # P(Gamma(k - n) > x), (n, x)
@@ -327,7 +320,7 @@ def _cycle(dev, ctx: RegimeContext, lam: float, k: int, window: float):
             break  # the batch no longer changes the flush: the fixed point is reached
         extra = flush.mean_ms
         p0 = flush.laplace(lam)
-        after = _gather_after_flush(flush, lam, k, window, False)
+        after = _gather_after_flush(flush, lam, k, window)
         cycle = p0 * (1.0 / lam + gather.mean_ms) + (1 - p0) * after.mean_ms + flush.mean_ms
         batch = lam * cycle
     return gather, flush, p0, after, cycle, batch
