@@ -11,6 +11,7 @@ import difflib
 import json
 import math
 import tomllib
+from dataclasses import dataclass
 from fractions import Fraction
 from pathlib import Path
 from typing import Annotated, Any, Literal, Union
@@ -29,6 +30,8 @@ __all__ = [
     "Strategy",
     "NORMAL",
     "regime_time_shares",
+    "HostLoad",
+    "host_load",
 ]
 
 NORMAL = "normal"
@@ -543,6 +546,38 @@ def tier_request_rates_per_s(stack: tuple[Tier, ...]) -> tuple[float, ...]:
         rates.append(rate)
         rate *= t.calls_per_request
     return tuple(rates)
+
+
+# --------------------------------------------------------------------------- host load
+@dataclass(frozen=True)
+class HostLoad:
+    """The host's figures in one regime, as the evaluator and the simulator both use them.
+
+    The other work on the host leaves 1 - u of each CPU, so CPU work takes 1 / (1 - u) as
+    long (``cpu_dilation``). The CPU per commit and the writer's CPU per flush apply when
+    ``workload.cpus`` is set; the hand-over cost applies always."""
+
+    cpu_dilation: float
+    commit_rate_factor: float
+    cpu_ms_per_commit: float  # dilated; 0 without a CPU model
+    flush_overhead_ms: float  # the writer's CPU per flush (dilated) + the hand-over
+
+
+def host_load(case: Case, regime: str) -> HostLoad:
+    """The host's figures in ``regime`` (see :class:`HostLoad`)."""
+    w = case.workload
+    reg = case.regime(regime)
+    other = w.other_cpu_utilisation
+    if reg is not None and reg.other_cpu_utilisation is not None:
+        other = reg.other_cpu_utilisation
+    dilation = 1.0 / (1.0 - other)
+    per_flush_us = w.cpu_us_per_flush * dilation if w.cpus else 0.0
+    return HostLoad(
+        cpu_dilation=dilation,
+        commit_rate_factor=reg.commit_rate_factor if reg is not None else 1.0,
+        cpu_ms_per_commit=w.cpu_ms_per_commit * dilation if w.cpus else 0.0,
+        flush_overhead_ms=(per_flush_us + w.handover_us) / 1000.0,
+    )
 
 
 # --------------------------------------------------------------------------- regimes in time

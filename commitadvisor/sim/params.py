@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from commitadvisor import latency as lat
-from commitadvisor.case import NORMAL, Case, Device
+from commitadvisor.case import NORMAL, Case, Device, host_load
 
 __all__ = [
     "DeviceParams",
@@ -97,16 +97,10 @@ def host_params(case: Case) -> HostParams:
     rate = case.commit_rate_per_s()
     rates, cpu, overhead = [], [], []
     for reg in case.regime_names():
-        r = case.regime(reg)
-        other = w.other_cpu_utilisation
-        if r is not None and r.other_cpu_utilisation is not None:
-            other = r.other_cpu_utilisation
-        dilation = 1.0 / (1.0 - other)
-        factor = r.commit_rate_factor if r is not None else 1.0
-        rates.append(rate * factor / 1000.0 if rate is not None else 0.0)
-        cpu.append(w.cpu_ms_per_commit * dilation if w.cpus else 0.0)
-        per_flush = w.cpu_us_per_flush * dilation if w.cpus else 0.0
-        overhead.append((per_flush + w.handover_us) / 1000.0)
+        load = host_load(case, reg)
+        rates.append(rate * load.commit_rate_factor / 1000.0 if rate is not None else 0.0)
+        cpu.append(load.cpu_ms_per_commit)
+        overhead.append(load.flush_overhead_ms)
     return HostParams(
         kind=w.kind, open_rate_per_ms=tuple(rates) if rate is not None else None,
         sessions=w.sessions, think_ms=w.think_time_ms,

@@ -7,7 +7,7 @@ from dataclasses import dataclass
 
 from commitadvisor import latency as L
 from commitadvisor import writer as W
-from commitadvisor.case import NORMAL, Case, Device
+from commitadvisor.case import NORMAL, Case, Device, host_load
 
 __all__ = ["RegimeContext", "DeviceInRegime", "build_context", "stall_mixture",
            "flushes_with_stalls", "busy_with_stalls"]
@@ -94,12 +94,7 @@ class RegimeContext:
 def build_context(case: Case, regime: str, time_share: float) -> RegimeContext:
     """The inputs of one regime: load, CPU figures and each device's flush profile."""
     w = case.workload
-    reg = case.regime(regime)
-    other = w.other_cpu_utilisation
-    if reg is not None and reg.other_cpu_utilisation is not None:
-        other = reg.other_cpu_utilisation
-    dilation = 1.0 / (1.0 - other)
-    factor = reg.commit_rate_factor if reg is not None else 1.0
+    load = host_load(case, regime)
     devices = {}
     for name, d in case.devices.items():
         prof = L.from_entry(d.latency.get(regime, d.latency[NORMAL]))
@@ -109,17 +104,16 @@ def build_context(case: Case, regime: str, time_share: float) -> RegimeContext:
             bandwidth_bytes_per_ms=d.bandwidth_bytes_per_s(regime) / 1000.0,
             stall_rate_per_ms=(st.per_s / 1000.0) if st else 0.0,
             stall_duration=L.from_entry(st.duration) if st else None,
-            overhead_ms=(w.cpu_us_per_flush * dilation + w.handover_us) / 1000.0
-            if w.cpus else w.handover_us / 1000.0,
+            overhead_ms=load.flush_overhead_ms,
         )
     rate = case.commit_rate_per_s()
     return RegimeContext(
         regime=regime, time_share=time_share,
-        open_rate_per_ms=rate * factor / 1000.0 if rate is not None else None,
+        open_rate_per_ms=rate * load.commit_rate_factor / 1000.0 if rate is not None else None,
         sessions=w.sessions, think_ms=w.think_time_ms,
         think_fixed=w.think_time_distribution == "fixed",
         log_bytes=w.log_bytes_per_commit, cpus=w.cpus,
-        cpu_ms_per_commit=w.cpu_ms_per_commit * dilation if w.cpus else 0.0,
+        cpu_ms_per_commit=load.cpu_ms_per_commit,
         devices=devices, wake_ms=w.wake_us_per_session / 1000.0,
     )
 
