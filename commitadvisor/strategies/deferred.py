@@ -143,14 +143,17 @@ def _gap(interval_ms: float, flush: L.Latency) -> tuple[L.Latency | None, float]
     return gap, gap.mean_ms
 
 
+# probability points of a stall's duration law, dense in the upper tail, and their weights
+_U_STALL = np.concatenate([np.linspace(0.0, 0.9, 181)[1:-1], np.linspace(0.9, 0.99, 91)[:-1],
+                           np.linspace(0.99, 0.99999, 100)])
+_W_STALL = np.diff(np.concatenate([[0.0], (_U_STALL[1:] + _U_STALL[:-1]) / 2, [1.0]]))
+
+
 def _stall_points(d: L.Latency) -> tuple[np.ndarray, np.ndarray]:
     """Quadrature of the length-biased stall (density x f(x) / E[D], the stall a random
     instant falls in): points (ms) and weights, dense in the upper tail."""
-    u = np.concatenate([np.linspace(0.0, 0.9, 181)[1:-1], np.linspace(0.9, 0.99, 91)[:-1],
-                        np.linspace(0.99, 0.99999, 100)])
-    edges = np.concatenate([[0.0], (u[1:] + u[:-1]) / 2, [1.0]])
-    x = np.asarray(d.quantile(u), dtype=float)
-    w = np.diff(edges) * x
+    x = np.asarray(d.quantile(_U_STALL), dtype=float)
+    w = _W_STALL * x
     return x, w / w.sum()
 
 
@@ -189,11 +192,8 @@ def caught_by_stall(d: L.Latency, stall_rate_per_ms: float, interval_ms: float,
     rate x E[S]): durable u + D + S. Poisson stall starts; one stall per commit at most.
     """
     i = interval_ms
-    u = np.concatenate([np.linspace(0.0, 0.9, 181)[1:-1], np.linspace(0.9, 0.99, 91)[:-1],
-                        np.linspace(0.99, 0.99999, 100)])
-    edges = np.concatenate([[0.0], (u[1:] + u[:-1]) / 2, [1.0]])
-    dur = np.asarray(d.quantile(u), dtype=float)
-    w_d = np.diff(edges)
+    dur = np.asarray(d.quantile(_U_STALL), dtype=float)
+    w_d = _W_STALL
     k = 48
     lead = (np.arange(k) + 0.5) / k * i  # a', the stall's start before the tick
     w_lead = np.full(k, i / k) * (i - lead) / i  # the chance of a stall there, over the rate
