@@ -36,9 +36,11 @@ from commitadvisor.strategies.synchronous import writer_response
 __all__ = ["evaluate_regime", "lag_distribution"]
 
 
-def lag_distribution(a: L.Latency, b: L.Latency) -> L.GridLatency:
-    """|T_a - T_b| for independent T_a, T_b: P(|D| <= x) = P(Ta - Tb <= x) - P(Ta < Tb - x),
-    integrated over T_b's quantiles (midpoint rule in probability).
+def lag_distribution(a: L.Latency, b: L.Latency, shared_share: float = 0.0) -> L.GridLatency:
+    """|T_a - T_b|: with chance ``shared_share`` the pair is comonotone (one cause drives both,
+    D = |Q_a(U) - Q_b(U)| for one uniform U), otherwise independent, P(|D| <= x) =
+    P(Ta - Tb <= x) - P(Ta < Tb - x) integrated over T_b's quantiles (midpoint rule in
+    probability). The same split as ``latency.minimum`` uses for the acknowledgement.
 
     T_a's cdf is tabulated once on a log grid of 2^14 points (ratio about 1.002 a step) and
     read by linear interpolation, rather than evaluated afresh at every (x, T_b) pair."""
@@ -67,6 +69,12 @@ def lag_distribution(a: L.Latency, b: L.Latency) -> L.GridLatency:
         upper = np.interp(yb[None, :] + xi, table_x, table_c)
         lower = np.interp(np.maximum(yb[None, :] - xi, 0) - 1e-12, table_x, table_c, left=0.0)
         c[i:i + 250] = (upper - lower) @ w
+    if shared_share > 0:
+        # comonotone part: the weighted law of |Q_a(u) - Q_b(u)| on the same quantile points
+        d = np.abs(ya - yb)
+        order = np.argsort(d)
+        co = np.interp(x, d[order], np.cumsum(w[order]), left=0.0, right=1.0)
+        c = (1 - shared_share) * c + shared_share * co
     c = np.clip(np.maximum.accumulate(c), 0.0, 1.0)
     mean, second = L._moments_from_cdf(x, c)
     return L.GridLatency(x, c, mean, second, float(1 - c[-1]), "second copy's lag")
@@ -133,7 +141,7 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
                                        ctx.wake_cost(batch_mean))
     else:
         first_durable = ack
-    lag = lag_distribution(ta, tb)
+    lag = lag_distribution(ta, tb, share)
     if not any(durable.values()):
         host = unbounded("host_crash", "neither device counts as durable")
     elif s.ack_after == "first" and not all(durable.values()):

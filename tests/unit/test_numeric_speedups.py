@@ -158,6 +158,23 @@ def test_lag_matches_scipy_quadrature():
     assert lag.mean_ms == pytest.approx(mean, rel=5e-3)
 
 
+def test_lag_with_a_shared_cause_mixes_in_the_comonotone_lag():
+    # two exponentials driven by one uniform: Q(u) = -m ln(1 - u) on both, so their
+    # difference is exponential with mean |m_a - m_b| (closed form); independent, the mean
+    # is (m_a^2 + m_b^2) / (m_a + m_b) (E|X - Y| for independent exponentials, closed form)
+    m_a, m_b = 2.0, 0.5
+    a, b = L.Exponential(m_a), L.Exponential(m_b)
+    co = lag_distribution(a, b, 1.0)
+    assert co.mean_ms == pytest.approx(m_a - m_b, rel=0.02)
+    for q in (0.5, 0.9, 0.99):
+        want = stats.expon(scale=m_a - m_b).ppf(q)
+        assert float(co.quantile(q)) == pytest.approx(want, rel=0.02)
+    independent = (m_a ** 2 + m_b ** 2) / (m_a + m_b)
+    half = lag_distribution(a, b, 0.5)
+    assert half.mean_ms == pytest.approx(0.5 * independent + 0.5 * (m_a - m_b), rel=0.02)
+    assert lag_distribution(a, b).mean_ms == pytest.approx(independent, rel=0.01)
+
+
 def test_open_group_commit_builds_its_response_once():
     flush = L.add_constant(L.Lognormal.from_percentiles(0.3, 2.0), 0.02)
     og = W.open_group_commit(flush, 2.0)
