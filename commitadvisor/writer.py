@@ -13,6 +13,8 @@ import numpy as np
 from commitadvisor import latency as L
 
 __all__ = [
+    "FiniteSourceCpu",
+    "finite_source_cpu",
     "OpenGroupCommit",
     "open_group_commit",
     "one_flush_per_commit",
@@ -345,6 +347,68 @@ def mmc_wait(servers: int, service_ms: float, rate_per_ms: float) -> L.Latency |
     tail = L.Exponential(1.0 / (servers / service_ms - rate_per_ms))
     return L.mixture([1 - c, c], [L.Fixed(0.0), tail]) if c > 1e-12 else L.Fixed(0.0)
 
+
+
+@dataclass(frozen=True)
+class FiniteSourceCpu:
+    """The CPU station of N closed sessions (see ``finite_source_cpu``)."""
+
+    throughput_per_ms: float  # commits per ms through the station
+    at_cpu: L.Latency  # a commit's time at the station: queue wait plus its own work (ms)
+    busy_servers: float  # mean CPUs busy
+
+
+def _finite_source_law(servers: int, service_ms: float, population: int,
+                       other_ms: float) -> np.ndarray:
+    """Stationary chance of k = 0..M sessions at the station (birth (M - k) / Z, death
+    min(k, c) / S), computed in logs."""
+    k = np.arange(population + 1)
+    from scipy.special import gammaln
+
+    log_ratio = np.log(service_ms) - np.log(max(other_ms, 1e-12))
+    log_servers = np.concatenate([[0.0], np.cumsum(np.log(np.minimum(k[1:], servers)))])
+    lp = (gammaln(population + 1) - gammaln(k + 1) - gammaln(population - k + 1)
+          + k * log_ratio + gammaln(k + 1) - log_servers)
+    p = np.exp(lp - lp.max())
+    return p / p.sum()
+
+
+def finite_source_cpu(servers: int, service_ms: float, sessions: int,
+                      other_ms: float) -> FiniteSourceCpu:
+    """N sessions that spend a mean ``other_ms`` away from the CPU (thinking, waiting for the
+    log) and then queue for one of c CPUs (FIFO, exponential work of mean S): the
+    finite-source (machine-interference) queue M/M/c//N, Kleinrock, Queueing Systems vol. 1,
+    1975, section 3.9. Its stationary law does not depend on the law of the time away, only
+    on its mean (Bunday and Scraton, 1980). An arriving session sees the law of the station
+    with N - 1 sessions (the arrival theorem for closed networks; Sevcik and Mitrani, 1981);
+    found with k >= c others there it waits Erlang(k - c + 1, c / S).
+    """
+    c, s_ms = servers, service_ms
+    full = _finite_source_law(c, s_ms, sessions, other_ms)
+    k = np.arange(sessions + 1)
+    busy = float(full @ np.minimum(k, c))
+    seen = _finite_source_law(c, s_ms, sessions - 1, other_ms) if sessions > 1 else \
+        np.array([1.0])
+    ahead = np.arange(seen.size) - c + 1  # phases to wait for, where positive
+    wait_p = seen[ahead > 0]
+    phases = ahead[ahead > 0].astype(float)
+    work = L.Exponential(s_ms)
+    p_wait = float(wait_p.sum())
+    if p_wait < 1e-12:
+        return FiniteSourceCpu(busy / s_ms, work, busy)
+    wait_p = wait_p / p_wait
+    step = s_ms / c
+    mean = float(wait_p @ phases) * step
+    second = float(wait_p @ (phases * (phases + 1))) * step ** 2
+    from scipy.special import gammaincc
+
+    top = phases[np.searchsorted(np.cumsum(wait_p), 1 - 1e-10).clip(0, phases.size - 1)]
+    x = np.linspace(0.0, step * (top + 10 * np.sqrt(top) + 10), 2049)
+    cdf = 1.0 - gammaincc(phases[None, :], x[:, None] / step) @ wait_p
+    positive = L.GridLatency(x, np.clip(cdf, 0.0, 1.0), mean, second, 0.0,
+                             "CPU queue of closed sessions")
+    wait = L.mixture([1 - p_wait, p_wait], [L.Fixed(0.0), positive])
+    return FiniteSourceCpu(busy / s_ms, L.convolve(wait, work), busy)
 
 
 def _binomial_cdf_below(j: int, m: int, q: np.ndarray) -> np.ndarray:

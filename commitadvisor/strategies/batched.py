@@ -82,7 +82,10 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
             return W.closed_batched_commit(lambda b: dev.flush(b, ctx.log_bytes), ctx.sessions,
                                            think, s.gather_window_ms, s.gather_target_commits)
 
-        return closed_result(ctx, dev, chain, device_exposures(dev))
+        # in lock step all N sessions arrive together: the target is met at once, or the
+        # window runs out on all of them
+        wait = 0.0 if ctx.sessions >= s.gather_target_commits else s.gather_window_ms
+        return closed_result(ctx, dev, chain, device_exposures(dev), lock_step_wait_ms=wait)
     bw_cap = dev.bandwidth_bytes_per_ms / ctx.log_bytes
     if lam >= bw_cap:
         return saturated_result(ctx.regime, ctx.time_share, saturation(

@@ -71,6 +71,11 @@ class RegimeContext:
             return None
         return L.convolve(wait, L.Exponential(self.cpu_ms_per_commit))
 
+    def cpu_closed(self, sessions: int, away_ms: float) -> W.FiniteSourceCpu:
+        """The CPU station of N closed sessions that spend a mean ``away_ms`` elsewhere
+        (think time and the log): the finite-source queue, ``writer.finite_source_cpu``."""
+        return W.finite_source_cpu(self.cpus, self.cpu_ms_per_commit, sessions, away_ms)
+
     def cpu_mean_ms(self, rate_per_ms: float) -> float:
         """Mean time at the CPU station: Erlang C wait C S / (c - a) plus the CPU work S
         (inf when saturated)."""

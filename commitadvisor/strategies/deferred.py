@@ -19,7 +19,6 @@ import numpy as np
 from commitadvisor import latency as L
 from commitadvisor.case import Case
 from commitadvisor.results import RegimeResult
-from commitadvisor.strategies.closed import CLOSED_NOTE, solve_closed_rate
 from commitadvisor.strategies.common import (
     Partial,
     assemble,
@@ -38,9 +37,16 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
     reg = case.regime(ctx.regime)
     duration = reg.duration_s if reg else None
     notes = []
+    station = None
     if ctx.open_rate_per_ms is None:
-        lam = _closed_rate(ctx)
-        notes.append(CLOSED_NOTE)
+        # acknowledged from the buffer: sessions cycle through think time and the CPU only
+        if ctx.cpus and ctx.cpu_ms_per_commit > 0:
+            station = ctx.cpu_closed(ctx.sessions, ctx.think_ms)
+            lam = station.throughput_per_ms
+            notes.append("closed sessions: acknowledged from the buffer, they cycle through "
+                         "the think time and the CPU station (finite-source queue)")
+        else:
+            lam = ctx.sessions / max(ctx.think_ms, 1e-9)
     else:
         lam = ctx.open_rate_per_ms
     bw_cap = dev.bandwidth_bytes_per_ms / ctx.log_bytes
@@ -58,7 +64,7 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         notes.append(f"{over:.1%} of flushes outlast the {interval:g} ms interval: the next "
                      "one starts when it ends and carries more (flush starts every "
                      f"{cycle:.3g} ms on average)")
-    cpu = ctx.cpu_wait(lam)
+    cpu = station.at_cpu if station is not None else ctx.cpu_wait(lam)
     if cpu is None:
         cap = ctx.cpus / ctx.cpu_ms_per_commit
         return saturated_result(ctx.regime, ctx.time_share, saturation(
@@ -275,12 +281,3 @@ def stalled_windows(d: L.Latency, interval_ms: float, flush: L.Latency,
     start = L.mixture([p[0] for p in parts_start], [p[1] for p in parts_start])
     host = L.mixture([p[0] for p in parts_host], [p[1] for p in parts_host])
     return start, host, float(w_held.sum())
-
-
-def _closed_rate(ctx: RegimeContext) -> float:
-    """Closed sessions acknowledged from the buffer cycle through think time and the CPU
-    station only (see commitadvisor.strategies.closed)."""
-
-    cpu_mean = ctx.cpu_mean_ms
-    cap = ctx.cpus / ctx.cpu_ms_per_commit if ctx.cpus and ctx.cpu_ms_per_commit > 0 else None
-    return solve_closed_rate(ctx.sessions, ctx.think_ms, cpu_mean, cap)

@@ -85,9 +85,14 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
     duration = reg.duration_s if reg else None
     lam = ctx.open_rate_per_ms
     notes = []
+    station = None
     if lam is None:
         fast = min((ctx.devices[d] for d in s.devices), key=lambda d: d.profile.mean_ms)
-        lam = ctx.sessions / (ctx.think_ms + ctx.cpu_ms_per_commit + fast.profile.mean_ms)
+        if ctx.cpus and ctx.cpu_ms_per_commit > 0:
+            station = ctx.cpu_closed(ctx.sessions, ctx.think_ms + fast.profile.mean_ms)
+            lam = station.throughput_per_ms
+        else:
+            lam = ctx.sessions / (ctx.think_ms + fast.profile.mean_ms)
         notes.append("closed sessions: the dual-device log is evaluated with open arrivals at "
                      "the sessions' rate (approximation; check it with the simulator)")
     responses, flushes = {}, []
@@ -110,7 +115,7 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         flushes.append((name, fl))
         busy = max(busy, wb)
         batch_mean = max(batch_mean, batch)
-    cpu = ctx.cpu_wait(lam)
+    cpu = station.at_cpu if station is not None else ctx.cpu_wait(lam)
     if cpu is None:
         return saturated_result(ctx.regime, ctx.time_share, saturation(
             "cpu", ctx.cpus / ctx.cpu_ms_per_commit, lam, duration, "the host's CPU"), 0)

@@ -11,7 +11,6 @@ from commitadvisor import latency as L
 from commitadvisor import writer as W
 from commitadvisor.case import Case
 from commitadvisor.results import RegimeResult
-from commitadvisor.strategies.closed import solve_closed_rate
 from commitadvisor.strategies.common import (
     Partial,
     assemble,
@@ -111,30 +110,66 @@ def _closed(case: Case, s, ctx: RegimeContext, dev: DeviceInRegime) -> RegimeRes
             return _one_per_commit_closed(ctx, dev, n, think)
         return W.closed_group_commit(lambda b: dev.flush(b, ctx.log_bytes), n, think)
 
-    return closed_result(ctx, dev, chain, device_exposures(dev))
+    return closed_result(ctx, dev, chain, device_exposures(dev),
+                         lock_step_wait_ms=None if s.grouping == "none" else 0.0)
+
+
+def in_lock_step(ctx: RegimeContext) -> bool:
+    """Sessions with a fixed think time and nothing random between the flush and the next
+    commit (no CPU work, no wake-up cost) return together: the sessions one flush released
+    reach the writer at one instant, so two groups that once share a flush never part, and
+    in the long run one flush carries all N."""
+    cpu_free = not ctx.cpus or ctx.cpu_ms_per_commit <= 0
+    return ctx.think_fixed and cpu_free and ctx.wake_ms <= 0
+
+
+def lock_step(ctx: RegimeContext, dev: DeviceInRegime, wait_ms: float) -> W.ClosedGroupCommit:
+    """N sessions in lock step: all N wait ``wait_ms`` (a gathering window they do not fill)
+    and one flush of N commits, then think Z. Cycle Z + wait + E[F(N)]; X = N / cycle."""
+    n = ctx.sessions
+    flush = dev.flush(n, ctx.log_bytes)
+    resp = L.add_constant(flush, wait_ms)
+    cycle = ctx.think_ms + resp.mean_ms
+    x = n / cycle
+    return W.ClosedGroupCommit(x, resp, resp.mean_ms, float(n), 1.0 / cycle,
+                               flush.mean_ms / cycle)
 
 
 def closed_result(ctx: RegimeContext, dev: DeviceInRegime, chain, exposures,
-                  notes: tuple[str, ...] = ()) -> RegimeResult:
-    """A closed workload's result from a writer chain ``chain(think_ms)``: the CPU station
-    enters by solving X (Z + R_writer + R_cpu(X)) = N below the CPU ceiling (interactive
-    response time law), then the chain runs once more with the CPU time added to the think
-    time."""
+                  notes: tuple[str, ...] = (),
+                  lock_step_wait_ms: float | None = None) -> RegimeResult:
+    """A closed workload's result from a writer chain ``chain(think_ms)``. With a CPU model
+    the two stations are solved by decomposition: the writer's chain sees the CPU time as
+    part of the think time, the CPU station is the finite-source queue of N sessions whose
+    time away is the think time plus the writer's response (``writer.finite_source_cpu``),
+    and the two are iterated to a fixed point of the mean times."""
     n, z = ctx.sessions, ctx.think_ms
     cpu_ms = ctx.cpu_ms_per_commit
     notes = list(notes)
-    if ctx.think_fixed:
+    if ctx.think_fixed and lock_step_wait_ms is not None and in_lock_step(ctx):
+        notes.append(f"fixed think time, no CPU work or wake-up cost: the {n} sessions fall "
+                     "into lock step and every flush carries all of them; real sessions drift "
+                     "apart, so read this as the best case and compare exponential think time")
+        wait_ms = lock_step_wait_ms
+
+        def chain(_think: float) -> W.ClosedGroupCommit:
+            return lock_step(ctx, dev, wait_ms)
+    elif ctx.think_fixed:
         notes.append("fixed think time: evaluated with the exponential-think chain "
                      "(approximation; check it with the simulator)")
     res = chain(z + cpu_ms)
     x = res.throughput_per_ms
     cpu = L.Fixed(0.0)
     if ctx.cpus and cpu_ms > 0:
-        cap = ctx.cpu_ceiling_per_ms(res.mean_batch, dev.overhead_ms)
-        x = solve_closed_rate(n, z + res.mean_response_ms, ctx.cpu_mean_ms, cap)
-        cpu = ctx.cpu_wait(x) or L.Fixed(0.0)
-        res = chain(z + cpu.mean_ms)
-        x = min(res.throughput_per_ms, x)
+        at_cpu_ms = cpu_ms
+        for _ in range(12):
+            station = ctx.cpu_closed(n, z + res.mean_response_ms)
+            cpu = station.at_cpu
+            if abs(cpu.mean_ms - at_cpu_ms) <= 1e-3 * cpu.mean_ms:
+                break
+            at_cpu_ms = cpu.mean_ms
+            res = chain(z + at_cpu_ms)
+        x = n / (z + res.mean_response_ms + cpu.mean_ms)
     cap = ctx.cpu_ceiling_per_ms(res.mean_batch, dev.overhead_ms)
     if cap is not None and x > 0.97 * cap:
         notes.append(f"the host's CPU is the bottleneck: throughput is near its ceiling of "

@@ -85,6 +85,46 @@ def test_closed_sessions_chain():
     close(r.ack_p99_ms, np.quantile(sim.response_ms, 0.99), P99_TOL)
 
 
+def test_closed_sessions_with_a_busy_cpu_station():
+    # two CPUs about 80 % busy: the CPU queue of 20 sessions is the finite-source queue, not
+    # the open M/M/c at the same rate (which read the mean 17 % high against the simulator)
+    case = make_case(workload={"kind": "closed", "sessions": 20, "think_time_ms": 20.0,
+                               "log_bytes_per_commit": 100, "cpus": 2,
+                               "cpu_ms_per_commit": 2.0})
+    r = evaluate(case).strategies[0].regimes[0]
+    sim = R.run_closed(20, 20.0, flush_fn(R.lognormal_sampler(1.0, 10.0)), seed=8,
+                       commits=120_000, cpu_servers=2, cpu_ms_per_commit=R.exp_sampler(2.0))
+    assert 0.7 < r.cpu_utilisation < 0.9
+    close(r.throughput_per_s, sim.throughput_per_s, 0.02)
+    close(r.ack_mean_ms, sim.response_ms.mean(), MEAN_TOL)
+    close(r.ack_p99_ms, np.quantile(sim.response_ms, 0.99), P99_TOL)
+
+
+@pytest.mark.parametrize("strategy", [
+    {"kind": "synchronous", "device": "a"},
+    {"kind": "batched", "device": "a", "gather_window_ms": 1.0, "gather_target_commits": 8},
+    {"kind": "batched", "device": "a", "gather_window_ms": 0.5, "gather_target_commits": 64},
+])
+def test_fixed_think_time_falls_into_lock_step(strategy):
+    # 20 sessions, fixed think time, nothing random between a flush and the next commit:
+    # every flush carries all 20 (the window runs out when the target is above 20)
+    case = make_case(workload={"kind": "closed", "sessions": 20, "think_time_ms": 3.0,
+                               "think_time_distribution": "fixed",
+                               "log_bytes_per_commit": 100},
+                     device_a=lognormal_device(1.0, 2.0), strategies=[strategy])
+    r = evaluate(case).strategies[0].regimes[0]
+    mode = "group" if strategy["kind"] == "synchronous" else "batched"
+    sim = R.run_closed(20, 3.0, flush_fn(R.lognormal_sampler(1.0, 2.0)), think="fixed",
+                       mode=mode, seed=9, commits=60_000,
+                       gather_window_ms=strategy.get("gather_window_ms"),
+                       gather_target=strategy.get("gather_target_commits"))
+    assert sim.batch_sizes.mean() == pytest.approx(20, rel=0.01)
+    assert r.mean_batch_commits == pytest.approx(20)
+    close(r.throughput_per_s, sim.throughput_per_s, 0.02)
+    close(r.ack_mean_ms, sim.response_ms.mean(), MEAN_TOL)
+    close(r.ack_p99_ms, np.quantile(sim.response_ms, 0.99), P99_TOL)
+
+
 def test_dual_device_first_of_two_and_second_copy_lag():
     case = make_case(strategies=[{"kind": "dual_device", "devices": ["a", "b"],
                                   "ack_after": "first", "shared_cause_share": 0.0}])

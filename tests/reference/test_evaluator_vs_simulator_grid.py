@@ -165,14 +165,6 @@ _TAIL = ("ack_p99_ms", "durable_p99_ms")
 # limits"). Each stays flagged by `evaluate --verify`; the test pins that the difference is
 # still beyond the tolerance, so a model that comes to agree must leave this table.
 KNOWN_LIMITS: dict[str, tuple[tuple[str, ...], str]] = {
-    "sync-closed-fixed-ln2-busy40": (_LATENCY, "fixed think time uses the exponential chain"),
-    "sync-closed-fixed-ln10-busy70": (_LATENCY, "fixed think time uses the exponential chain"),
-    "batched-closed-fixed-ln2-gather1msx8-busy40": (
-        _LATENCY, "fixed think time uses the exponential chain"),
-    "sync-closed-exp-ln2-cpu80-busy40": (
-        _LATENCY, "closed sessions queue for the CPU by X = N / (Z + R(X)), an approximation"),
-    "sync-closed-exp-exp_fast-cpu90-busy81": (
-        _LATENCY, "closed sessions queue for the CPU by X = N / (Z + R(X)), an approximation"),
     "batched-closed-exp-ln2-gather1msx8-busy50": (
         _TAIL, "the closed batched chain approximates the oldest pending commit's age"),
     "batched-open-ln20-gather0.5msx8-busy40": (
