@@ -19,7 +19,7 @@ import numpy as np
 
 from commitadvisor.sim.params import DeviceParams, HostParams, Schedule
 
-__all__ = ["Pool", "Stalls", "Writer", "Ring", "FlushLog"]
+__all__ = ["Pool", "Stalls", "Writer", "Ring", "FlushLog", "SharedCause", "link_shared_cause"]
 
 _BLOCK = 1 << 16
 NATURAL, ONE_PER_COMMIT, BATCHED, DEFERRED = range(4)
@@ -232,6 +232,7 @@ class Writer:
         self.f = np.full(lanes, np.inf)
         self.jt = np.full(lanes, np.inf)
         self.flushes = 0
+        self.shared: SharedCause | None = None  # set by link_shared_cause (two devices)
 
     # ------------------------------------------------------------------ rules
     def _start(self, e, f, g, jt) -> np.ndarray:
@@ -264,9 +265,12 @@ class Writer:
         if self.mode == BATCHED:
             self.jt[sel] = np.where(nj - hi == self.target, join_ms, self.jt[sel])
 
-    def _work(self, count: int, start: np.ndarray, batch: np.ndarray) -> np.ndarray:
+    def _work(self, count: int, start: np.ndarray, batch: np.ndarray,
+              rows: np.ndarray | None = None) -> np.ndarray:
         """Device time of ``count`` flushes starting at ``start``: the regime's latency, the
         transfer beyond the profiled block, and the writer's per-flush work (ms)."""
+        if self.shared is not None:
+            return self._shared_work(rows, start, batch)
         if self.fixed is not None:
             r = self.fixed
             work = self._lat[r].take(count).copy()
@@ -286,7 +290,7 @@ class Writer:
         (the caller has decided both); returns their ends. The flush log gets (rows, start,
         end, lo, hi), and for the deferred writer also the previous flush's lo and end."""
         batch = hi - lo
-        work = self._work(rows.size, start, batch)
+        work = self._work(rows.size, start, batch, rows)
         end = self.stalls.finish(rows, start, work)
         if self.mode == DEFERRED:
             # only the deferred writer's acks look back at the flush before (its buffer cap)
@@ -322,7 +326,7 @@ class Writer:
         else:
             hi = nj.copy()
         batch = hi - lo
-        work = self._work(rows.size, start, batch)
+        work = self._work(rows.size, start, batch, rows)
         end = self.stalls.finish(rows, start, work)
         if mode == DEFERRED:
             prev_lo = self.lo[sel].copy()
@@ -344,6 +348,28 @@ class Writer:
         self.log.add(rows, start, end, lo, hi, prev_lo, e)
         return start, end, lo, hi
 
+    def _shared_work(self, rows: np.ndarray, start: np.ndarray,
+                     batch: np.ndarray) -> np.ndarray:
+        """As ``_work``, with the flush time drawn as the profile's quantile of a uniform
+        (so that device b can reuse device a's; see :class:`SharedCause`)."""
+        sh = self.shared
+        u = sh.uniforms.take(rows.size).copy()
+        if self.index == 0:
+            sh.record(rows, start, u)
+        else:
+            hit = sh.coin.take(rows.size) < sh.share
+            ua, found = sh.lookup(rows, start)
+            take = hit & found
+            u[take] = ua[take]
+        reg = (np.full(rows.size, self.fixed, dtype=np.intp) if self.fixed is not None
+               else self.schedule.index(start))
+        work = np.empty(rows.size)
+        for r in np.unique(reg):
+            sel = reg == r
+            work[sel] = self.dev.latency[int(r)].quantile(u[sel])
+        extra = np.maximum(0.0, batch * self.log_bytes - self.dev.block_bytes)
+        return work + extra / self.bw[reg] + self.overhead[reg]
+
     def _latency(self, reg: np.ndarray, n: int) -> np.ndarray:
         if self.schedule.fixed is not None:
             return self._lat[self.schedule.fixed].take(n).copy()
@@ -357,6 +383,97 @@ class Writer:
 
     def pending(self) -> np.ndarray:
         return self.nj > self.hi
+
+
+class SharedCause:
+    """The shared-cause share s of a dual-device log, flush by flush.
+
+    Every flush draws its time as Q(u), the profile's quantile of a uniform u. Device a
+    (writer 0) records each flush's (start, u) per lane. A flush of device b that starts at
+    the same instant as a flush of a (both writers were idle when a commit joined), with
+    chance s (one Bernoulli draw per flush of b), takes that flush's u; otherwise b draws
+    its own. At light load every commit finds both writers idle, so its two flush times
+    are comonotone with chance s and independent otherwise: the evaluator's
+    sf_min = (1 - s) sf_a sf_b + s min(sf_a, sf_b). Each device's own flush-time law stays
+    its profile (whether a's flush starts with b's does not depend on its u); reusing the
+    u of the flush of a in flight would not: a flush in flight at a given instant is
+    length-biased, so b's flushes would be drawn slow too often. Under load fewer commits
+    find both writers idle, so the pairing weakens. Transfer time, the writer's work and
+    stalls stay per device.
+
+    Device a's records are kept per lane in a ring (``width`` a power of two), from the
+    latest one at or before device b's last flush start (b's starts only increase) to the
+    newest (a's writer runs ahead of b's within an event-loop step).
+    """
+
+    def __init__(self, share: float, rng: np.random.Generator, lanes: int, width: int = 64):
+        self.share = float(share)
+        self.uniforms = Pool(lambda n: rng.random(n))
+        self.coin = Pool(lambda n: rng.random(n))
+        self.width = width
+        self.start = np.full((lanes, width), np.inf)
+        self.u = np.zeros((lanes, width))
+        self.head = np.zeros(lanes, dtype=np.int64)  # records made so far
+        self.tail = np.zeros(lanes, dtype=np.int64)  # oldest record still needed
+
+    def record(self, rows: np.ndarray, start: np.ndarray, u: np.ndarray) -> None:
+        """Device a starts flushes (at most one per lane, in start order per lane)."""
+        need = int((self.head[rows] - self.tail[rows]).max(initial=0)) + 1
+        if need > self.width:
+            self._grow(need)
+        col = self.head[rows] & (self.width - 1)
+        self.start[rows, col] = start
+        self.u[rows, col] = u
+        self.head[rows] += 1
+
+    def _grow(self, need: int) -> None:
+        w = self.width
+        new_w = w
+        while new_w < need:
+            new_w *= 2
+        lanes = self.start.shape[0]
+        k = self.tail[:, None] + np.arange(w)[None, :]
+        r = np.broadcast_to(np.arange(lanes)[:, None], k.shape)
+        start = np.full((lanes, new_w), np.inf)
+        u = np.zeros((lanes, new_w))
+        start[r, k & (new_w - 1)] = self.start[r, k & (w - 1)]
+        u[r, k & (new_w - 1)] = self.u[r, k & (w - 1)]
+        self.start, self.u, self.width = start, u, new_w
+
+    def lookup(self, rows: np.ndarray, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The u of device a's flush starting at t in each listed lane, and whether there
+        is one (binary search for a's latest start at or before t)."""
+        lo = self.tail[rows].copy()
+        hi = self.head[rows].copy()
+        mask = self.width - 1
+        while True:
+            act = np.flatnonzero(lo < hi)
+            if act.size == 0:
+                break
+            mid = (lo[act] + hi[act]) // 2
+            le = self.start[rows[act], mid & mask] <= t[act]
+            lo[act[le]] = mid[le] + 1
+            hi[act[~le]] = mid[~le]
+        idx = lo - 1
+        found = idx >= self.tail[rows]
+        rf, col = rows[found], idx[found] & mask
+        out = np.zeros(rows.size)
+        out[found] = self.u[rf, col]
+        same = np.zeros(rows.size, dtype=bool)
+        same[found] = self.start[rf, col] == t[found]
+        self.tail[rf] = idx[found]
+        return out, same
+
+
+def link_shared_cause(writers: list[Writer], strategy, rng: np.random.Generator) -> None:
+    """Give a dual-device strategy with a shared-cause share above 0 its shared draws; with
+    a share of 0 nothing changes (the writers keep their own draws)."""
+    share = float(getattr(strategy, "shared_cause_share", 0.0) or 0.0)
+    if len(writers) != 2 or share <= 0:
+        return
+    sh = SharedCause(share, rng, writers[0].e.size)
+    for w in writers:
+        w.shared = sh
 
 
 class Ring:

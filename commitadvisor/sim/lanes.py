@@ -17,7 +17,16 @@ from __future__ import annotations
 
 import numpy as np
 
-from commitadvisor.sim.engine import BATCHED, DEFERRED, ONE_PER_COMMIT, Pool, Ring, Writer, expand
+from commitadvisor.sim.engine import (
+    BATCHED,
+    DEFERRED,
+    ONE_PER_COMMIT,
+    Pool,
+    Ring,
+    Writer,
+    expand,
+    link_shared_cause,
+)
 from commitadvisor.sim.params import DeviceParams, HostParams, Schedule
 
 __all__ = ["run_open", "run_closed", "run_measured_latency", "Combine"]
@@ -89,6 +98,7 @@ class _Lanes:
                         for i, d in enumerate(devices)]
         for w in self.writers:
             w.stalls.start(t_init, stationary)
+        link_shared_cause(self.writers, strategy, rng)
         self.arrival_field = "A" if (host.cpus or host.kind == "closed") else "J"
         fields = {"J": float, **extra_fields}
         if self.arrival_field == "A":
@@ -274,6 +284,7 @@ def run_open(strategy, host: HostParams, devices: list[DeviceParams], schedule: 
                for i, d in enumerate(devices)]
     for w in writers:
         w.stalls.start(t_init, stationary)
+    link_shared_cause(writers, strategy, rng)
     comb = Combine(strategy, devices)
     nd = len(writers)
     cpus = host.cpus

@@ -68,8 +68,10 @@ __all__ = [
     "DualResult",
     "LogDevice",
     "OpenResult",
+    "exp_quantile",
     "exp_sampler",
     "fixed_sampler",
+    "lognormal_quantile",
     "lognormal_sampler",
     "mixture_sampler",
     "run_closed",
@@ -86,7 +88,7 @@ MODES = ("group", "one_per_commit", "batched")
 _BLOCK = 4096  # interarrival times are drawn in blocks of this many
 
 # Roles of the child random streams (fixed, so that each role keeps its draws).
-_ARRIVALS, _FLUSH_A, _STALLS_A, _CPU, _FLUSH_B, _STALLS_B, _INSPECT = range(7)
+_ARRIVALS, _FLUSH_A, _STALLS_A, _CPU, _FLUSH_B, _STALLS_B, _INSPECT, _SHARED = range(8)
 
 
 # ---------------------------------------------------------------------------- samplers
@@ -166,6 +168,24 @@ def mixture_sampler(parts: Sequence[tuple[float, Sampler]]) -> Sampler:
     return _Mixture(tuple(np.cumsum(shares).tolist()), tuple(p for _, p in parts))
 
 
+def exp_quantile(mean_ms: float) -> Callable[[float], float]:
+    """Quantile function of an exponential flush time: Q(u) = -mean ln(1 - u)."""
+    _positive("mean_ms", mean_ms)
+    return lambda u: -mean_ms * math.log1p(-u)
+
+
+def lognormal_quantile(p50_ms: float, p99_ms: float) -> Callable[[float], float]:
+    """Quantile function of the lognormal with the given median and 99th percentile:
+    Q(u) = p50 exp(sigma z(u)), sigma = ln(p99 / p50) / z(0.99), z the standard normal's
+    inverse cdf (from the standard library)."""
+    _positive("p50_ms", p50_ms)
+    if not p99_ms > p50_ms:
+        raise ValueError("p99_ms must exceed p50_ms")
+    z = NormalDist()
+    sigma = math.log(p99_ms / p50_ms) / z.inv_cdf(0.99)
+    return lambda u: p50_ms * math.exp(sigma * z.inv_cdf(u))
+
+
 def _positive(name: str, value: float) -> None:
     if not (math.isfinite(value) and value > 0):
         raise ValueError(f"{name} must be a finite number > 0, got {value!r}")
@@ -193,7 +213,8 @@ def _flush_caller(sampler: Callable[..., float]) -> Callable[[np.random.Generato
 
 
 def _streams(seed: int) -> list[np.random.Generator]:
-    return [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(7)]
+    # spawn(8)'s first seven children are spawn(7)'s: adding a role changed no other draws
+    return [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(8)]
 
 
 def _frozen(values: Sequence[float] | np.ndarray, dtype: type = float) -> np.ndarray:
@@ -873,6 +894,8 @@ def run_dual(
     warmup: int = 2_000,
     stalls_a: Stalls | None = None,
     stalls_b: Stalls | None = None,
+    shared_cause_share: float = 0.0,
+    transfer_ms: Callable[[int], float] | None = None,
 ) -> DualResult:
     """The log written to two devices, each with its own natural-group-commit writer.
 
@@ -881,15 +904,30 @@ def run_dual(
     (``"both"``) of its two durable times. Device a uses the same random streams as
     ``run_open`` with the same seed, so its durable times equal that run's responses.
     There is no CPU station here.
+
+    Shared cause (``shared_cause_share`` s > 0): the flush samplers are then quantile
+    functions ``Q(u) -> ms`` (``exp_quantile``, ``lognormal_quantile``). Each flush of a
+    draws its own uniform u; a flush of b that starts at the same instant as one of a
+    (both writers idle when a commit arrives) uses, with chance s (one draw per flush of
+    b), that flush's u, otherwise its own. ``transfer_ms(batch)``, if given, is added to
+    every flush of both devices. Stalls stay independent per device.
     """
     if ack_after not in ("first", "both"):
         raise ValueError(f"ack_after must be 'first' or 'both', got {ack_after!r}")
     _positive("rate_per_s", rate_per_s)
     if commits < 1 or warmup < 0:
         raise ValueError("commits must be >= 1 and warmup >= 0")
+    if not 0.0 <= shared_cause_share <= 1.0:
+        raise ValueError(f"shared_cause_share must be in [0, 1], got {shared_cause_share!r}")
     total = warmup + commits
     rngs = _streams(seed)
     env = simpy.Environment()
+    if shared_cause_share > 0:
+        flush_a_ms, flush_b_ms = _shared_flushes(env, flush_a_ms, flush_b_ms,
+                                                 shared_cause_share, rngs[_SHARED],
+                                                 transfer_ms)
+    elif transfer_ms is not None:
+        raise ValueError("transfer_ms goes with shared_cause_share > 0 (quantile samplers)")
     arrived = np.full(total, np.nan)
     done = {"a": np.full(total, np.nan), "b": np.full(total, np.nan)}
     outstanding = 2 * total
@@ -945,3 +983,29 @@ def run_dual(
         batch_sizes_b=_frozen(sizes_b, int),
         simulated_s=t1 / 1000.0,
     )
+
+
+def _shared_flushes(env: simpy.Environment, q_a: Callable[[float], float],
+                    q_b: Callable[[float], float], share: float, coin: np.random.Generator,
+                    transfer_ms: Callable[[int], float] | None):
+    """Flush samplers (rng, batch) -> ms for the two devices of ``run_dual`` under a shared
+    cause: a flush of b starting when one of a started reuses its uniform with chance
+    ``share``. A flush's time is drawn when its writer starts it; at one instant a's writer
+    runs first (it is the first to be woken by an arrival)."""
+    last = {"t": -math.inf, "u": 0.0}
+
+    def extra(batch: int) -> float:
+        return float(transfer_ms(batch)) if transfer_ms is not None else 0.0
+
+    def flush_a(rng: np.random.Generator, batch: int) -> float:
+        u = float(rng.random())
+        last["t"], last["u"] = env.now, u
+        return float(q_a(u)) + extra(batch)
+
+    def flush_b(rng: np.random.Generator, batch: int) -> float:
+        u = float(rng.random())
+        if float(coin.random()) < share and last["t"] == env.now:
+            u = last["u"]
+        return float(q_b(u)) + extra(batch)
+
+    return flush_a, flush_b
