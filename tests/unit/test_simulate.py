@@ -220,3 +220,23 @@ def test_probes_time_average_matches_the_exact_integral():
     # and each instant's count is exact: recount one by brute force
     t = (17 + p.u[0, 17]) * p.step[0]
     assert got[17] == int(((a <= t) & (t < a + w)).sum())
+
+
+def test_rare_stalls_are_simulated_in_a_bounded_segment_and_flagged():
+    # Stalls at 0.0001/s (about nine a day) of about a second: measuring 5 of them would
+    # take 5e7 ms, some 40,000 times the 2,000 requested commits' own time. The segment
+    # is held to 16 x the requested commits' time and says that few stalls were expected.
+    d = copy.deepcopy(SMALL)
+    d["regimes"] = []
+    d["strategies"] = [SMALL["strategies"][0]]
+    d["devices"]["d"]["stalls"] = {"normal": {
+        "per_s": 0.0001, "duration": {"kind": "lognormal", "p50_ms": 600.0, "p99_ms": 1500.0}}}
+    sim = simulate_case(parse_case(d, "test"), seed=2, commits=2_000)
+    seg = sim.segments[0]
+    # measured commits: Poisson with mean 16 x 2,000 = 32,000 (sd 179); 5 % is 9 sd
+    assert seg.commits_measured <= 1.05 * 16 * 2_000, seg.commits_measured
+    assert seg.commits_measured >= 0.95 * 16 * 2_000, seg.commits_measured
+    notes = sim.evaluation.strategy("sync").regime("normal").notes
+    rare = [n for n in notes if "stalls are rare" in n]
+    # expected stalls: 1e-7 per ms x 32,000 commits / 0.8 per ms = 0.004
+    assert len(rare) == 1 and "about 0.004 expected" in rare[0], notes
