@@ -240,3 +240,39 @@ def test_rare_stalls_are_simulated_in_a_bounded_segment_and_flagged():
     rare = [n for n in notes if "stalls are rare" in n]
     # expected stalls: 1e-7 per ms x 32,000 commits / 0.8 per ms = 0.004
     assert len(rare) == 1 and "about 0.004 expected" in rare[0], notes
+
+
+def test_shared_cause_records_find_the_flush_of_a_that_started_at_the_same_instant():
+    # Device a's records grow past the ring's width (8 here) while device b looks up only
+    # now and then; every lookup is checked against a plain scan of all records.
+    from commitadvisor.sim.engine import SharedCause
+
+    rng = np.random.default_rng(5)
+    lanes = 3
+    sh = SharedCause(0.5, np.random.default_rng(1), lanes, width=8)
+    starts = [[] for _ in range(lanes)]
+    us = [[] for _ in range(lanes)]
+    t = np.zeros(lanes)
+    last_b = np.zeros(lanes)
+    seen = set()
+    for step in range(400):
+        rows = np.flatnonzero(rng.random(lanes) < 0.7)
+        t[rows] += rng.exponential(1.0, rows.size)
+        u = rng.random(rows.size)
+        sh.record(rows, t[rows].copy(), u)
+        for r, tr, ur in zip(rows, t[rows], u, strict=True):
+            starts[r].append(tr)
+            us[r].append(ur)
+        if step % 37 == 36:  # b flushes: once between starts (mostly), then at a's latest
+            for exact in (False, True):
+                q = t.copy() if exact else np.maximum(last_b, t - 0.5 * rng.random(lanes))
+                got, same = sh.lookup(np.arange(lanes), q)
+                for r in range(lanes):
+                    hit = [i for i, s in enumerate(starts[r]) if s == q[r]]
+                    assert bool(same[r]) == bool(hit), (r, q[r])
+                    seen.add(bool(hit))
+                    if hit:
+                        assert got[r] == us[r][hit[-1]]
+                last_b = q
+    assert sh.width > 8  # the ring grew
+    assert seen == {True, False}  # both answers were checked
