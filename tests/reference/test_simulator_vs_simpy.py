@@ -301,15 +301,15 @@ def test_dual_shared_cause_against_simpy(share, ack_after):
     # the same instant as a flush of a takes, with chance s (one draw per flush of b), a's
     # uniform, and each flush time is the profile's quantile of its uniform. At 100
     # commits/s most commits find both writers idle, so the rule acts on most of them. The
-    # simulator measures 400,000 commits, four times the reference's 100,000 (the
+    # simulator measures 240,000 commits, four times the reference's 60,000 (the
     # percentile rule of the module docstring).
     case = _case({"commit_rate_per_s": 100.0},
                  [{"kind": "dual_device", "devices": ["a", "b"], "ack_after": ack_after,
                    "shared_cause_share": share}],
                  b={"latency": {"normal": {"kind": "lognormal", "p50_ms": 0.3, "p99_ms": 2.0}}})
-    r, seg = _run(case, commits=400_000)
+    r, seg = _run(case, commits=240_000)
     ref = sm.run_dual(100.0, sm.lognormal_quantile(1.0, 10.0), sm.lognormal_quantile(0.3, 2.0),
-                      ack_after=ack_after, seed=5, commits=100_000, shared_cause_share=share)
+                      ack_after=ack_after, seed=5, commits=60_000, shared_cause_share=share)
     resp = ref.response_ms
     _close_mean(r.ack_mean_ms, seg.ack_mean_se_ms, float(resp.mean()), _batch_se(resp))
     p99_ref = float(np.quantile(resp, 0.99))
@@ -328,7 +328,7 @@ def test_simpy_dual_shared_cause_moves_the_figures():
     # samplers need s > 0; 1e-9 is independent in effect) moves the reference's "first"
     # mean at 100 commits/s by more than twice the tolerance used there.
     runs = [sm.run_dual(100.0, sm.lognormal_quantile(1.0, 10.0),
-                        sm.lognormal_quantile(0.3, 2.0), seed=5, commits=100_000,
+                        sm.lognormal_quantile(0.3, 2.0), seed=5, commits=60_000,
                         shared_cause_share=s) for s in (1e-9, 1.0)]
     (m0, se0), (m1, se1) = ((float(x.response_ms.mean()), _batch_se(x.response_ms))
                             for x in runs)
