@@ -8,8 +8,10 @@ acknowledgement to durable, is the time to the next flush start (uniform on [0, 
 cycle C = max(I, flush time)) plus that flush: W = U + S (host crash or power loss); a
 process crash loses only what was not yet handed to the operating system: W = U. The
 number at risk at a random instant is lambda E[W] on average (Little's law) and at most the
-buffer's bound buffer_bytes / log_bytes_per_commit. A stall longer than the time the buffer
-takes to fill (buffer_bytes / (lambda x log bytes)) blocks commits until it ends.
+buffer's bound buffer_bytes / log_bytes_per_commit. A buffer that can fill between flushes
+makes commits wait for space (commitadvisor.strategies.log_buffer). A stall longer than the
+time the buffer takes to fill (buffer_bytes / (lambda x log bytes)) blocks commits until it
+ends.
 """
 
 from __future__ import annotations
@@ -28,6 +30,7 @@ from commitadvisor.strategies.common import (
     unbounded,
 )
 from commitadvisor.strategies.context import RegimeContext
+from commitadvisor.strategies.log_buffer import buffer_waits, can_fill
 
 __all__ = ["evaluate_regime"]
 
@@ -76,6 +79,28 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
     bound = s.buffer_bytes // ctx.log_bytes
     ack = cpu
     window_host = L.convolve(to_start, flush)
+    durable = None
+    batch = lam * cycle
+
+    def flush_for(b: float) -> L.Latency:
+        return dev.flush(b, ctx.log_bytes)
+
+    if can_fill(lam, interval, bound, flush_for):
+        if bound <= _BUFFER_MODEL_MAX:
+            waits = buffer_waits(lam, interval, bound, flush_for,
+                                 lambda f, n: tick_phase(interval, f, n))
+            ack = L.convolve(cpu, waits.ack_wait)
+            to_start, window_host = waits.to_start, waits.window_host
+            durable = L.convolve(cpu, waits.durable_wait)
+            batch, cycle = waits.mean_batch, waits.cycle_ms
+            notes.append(f"the buffer holds {bound} commits and fills between flushes: "
+                         f"{waits.blocked_share:.1%} of commits wait for space, "
+                         f"{waits.ack_wait.mean_ms:.3g} ms on average; a larger buffer or a "
+                         "shorter interval removes the wait")
+        else:
+            notes.append(f"the buffer ({bound} commits) can fill between flushes; the wait "
+                         "for space is not modelled at this size, so the acknowledgement "
+                         "reads low: check it with the simulator")
     if dev.stall_duration is not None:
         fill_ms = s.buffer_bytes / (lam * ctx.log_bytes)
         d = dev.stall_duration
@@ -93,7 +118,8 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
                                 [window_host, caught, in_stall_host])
         if blocked_share > 0:
             ack = L.mixture([1 - blocked_share, blocked_share],
-                            [cpu, L.convolve(cpu, L.residual(d))])
+                            [ack, L.convolve(ack, L.residual(d))])
+            durable = None
             notes.append(f"stalls outlast the {fill_ms:.0f} ms the buffer takes to fill: "
                          f"{blocked_share:.2%} of commits wait for the device although "
                          "nobody waits for a flush")
@@ -109,15 +135,16 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
                   "it holds, until the log is archived or replicated elsewhere"),
     )
     return assemble(ctx.regime, ctx.time_share, Partial(
-        ack=ack, durable=L.convolve(ack, window_host) if durable_ok else None,
+        ack=ack, durable=(durable or L.convolve(ack, window_host)) if durable_ok else None,
         throughput_per_ms=lam,
         exposures=exposures, flushes_per_ms=((dev.name, 1.0 / cycle),),
-        mean_batch=lam * cycle, writer_busy=min(1.0, writer_busy),
+        mean_batch=batch, writer_busy=min(1.0, writer_busy),
         cpu_busy=(lam * ctx.cpu_ms_per_commit / ctx.cpus) if ctx.cpus else None,
         copies_at_ack=0, notes=tuple(notes)))
 
 
 _U = np.linspace(0.0005, 0.9995, 1000)
+_BUFFER_MODEL_MAX = 1000  # commits: the buffer chain is a dense matrix of this order
 
 
 def _gap(interval_ms: float, flush: L.Latency) -> tuple[L.Latency | None, float]:
@@ -131,22 +158,34 @@ def _gap(interval_ms: float, flush: L.Latency) -> tuple[L.Latency | None, float]
     late. Starts go off the grid with chance P(S > I) from the grid and P(S > V) from off
     it (a two-state chain; V's law is taken from one late flush, an approximation)."""
     i = interval_ms
-    late = float(flush.sf(i))
-    if late < 1e-9:
+    phase = tick_phase(i, flush, 400)
+    if phase is None:
         return None, i
-    u = float(flush.cdf(i)) + late * (np.arange(400) + 0.5) / 400
-    s0 = np.asarray(flush.quantile(np.minimum(u, 1 - 1e-12)), dtype=float)
-    v = np.clip(i * np.ceil(s0 / i) - s0, 0.0, i)
+    v, p_off = phase
     x = np.linspace(0.0, i, 1025)
     w = np.full(v.size, 1.0 / v.size)
     wait = L.GridLatency(x, _uniforms_cdf(x, w, v, v), float(v.mean()), float((v**2).mean()),
                          label="wait to the next tick")
     on = L.maximum(L.Fixed(i), flush)
     off = L.maximum(wait, flush)
-    late_off = float(np.mean(flush.sf(v)))
-    p_off = late / (1 - late_off + late)
     gap = L.mixture([1 - p_off, p_off], [on, off])
     return gap, gap.mean_ms
+
+
+def tick_phase(interval_ms: float, flush: L.Latency,
+               points: int) -> tuple[np.ndarray, float] | None:
+    """(V at ``points`` equally likely late flushes, chance that a start is off the grid)
+    for the two-state chain of ``_gap``; None when flushes outlast the interval with chance
+    under 1e-9."""
+    i = interval_ms
+    late = float(flush.sf(i))
+    if late < 1e-9:
+        return None
+    u = float(flush.cdf(i)) + late * (np.arange(points) + 0.5) / points
+    s0 = np.asarray(flush.quantile(np.minimum(u, 1 - 1e-12)), dtype=float)
+    v = np.clip(i * np.ceil(s0 / i) - s0, 0.0, i)
+    late_off = float(np.mean(flush.sf(v)))
+    return v, late / (1 - late_off + late)
 
 
 # probability points of a stall's duration law, dense in the upper tail, and their weights

@@ -64,10 +64,10 @@ def simpy_finite_source(servers: int, service_ms: float, sessions: int, away_ms:
 @pytest.mark.parametrize("away", ["exponential", "fixed"])
 def test_several_cpus_match_simpy(away):
     # 3 CPUs 86 % busy (where the open M/M/c formula at the same rate reads the mean 62 %
-    # high); the stationary law is the same for a fixed time away
-    # (insensitivity of the finite-source queue: Bunday and Scraton, The G/M/r machine
-    # interference model, EJOR 1980; citation from memory). 200,000 jobs: the mean's noise is well under 1 %
-    # (batch means over the run), so 2 % on the mean and 3 % on p99
+    # high); the stationary law is the same for a fixed time away (insensitivity of the
+    # finite-source queue: Bunday and Scraton, The G/M/r machine interference model, EJOR
+    # 1980; citation from memory). 200,000 jobs: the mean's noise is well under 1 % (batch
+    # means over the run), so 2 % on the mean and 3 % on p99
     servers, service_ms, sessions, away_ms = 3, 1.0, 20, 6.0
     x_ref, t = simpy_finite_source(servers, service_ms, sessions, away_ms, away, seed=7,
                                    jobs=200_000)

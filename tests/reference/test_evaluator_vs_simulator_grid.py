@@ -173,9 +173,6 @@ KNOWN_LIMITS: dict[str, tuple[tuple[str, ...], str]] = {
         ("process_crash.window_mean_ms",),
         "flushes that nearly always outlast the interval: the tick phase after them is "
         "approximated"),
-    "deferred-open-ln2-buf16k-bigrec-busy70": (
-        _LATENCY + ("process_crash.window_mean_ms", "host_crash.window_mean_ms"),
-        "a buffer that fills between flushes: the wait for buffer space is not modelled"),
 }
 
 
