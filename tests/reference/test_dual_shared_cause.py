@@ -76,8 +76,9 @@ def _figure(res, name: str) -> float:
 
 
 def _known(reason: str):
-    return pytest.mark.xfail(strict=True, reason="known disagreement, reported to the "
-                             "evaluator's owner (seed 7, evaluator vs simulator): " + reason)
+    return pytest.mark.xfail(strict=True, reason="known limit listed in the README (the "
+                             "evaluator applies the share at any load; seed 7, evaluator vs "
+                             "simulator): " + reason)
 
 
 @pytest.mark.parametrize("busy", [0.2, 0.6])
