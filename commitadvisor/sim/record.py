@@ -71,9 +71,17 @@ class LogHist:
     def add(self, values_ms: np.ndarray) -> None:
         if values_ms.size == 0:
             return
-        self.counts += np.bincount(hist_bins(values_ms), minlength=_NBINS)
         self.total += int(values_ms.size)
         self.sum_ms += float(values_ms.sum())
+        # zeros (a deferred commit's acknowledgement) go to the bottom bin without logarithms
+        zero = values_ms <= 0.0
+        n_zero = int(np.count_nonzero(zero))
+        if n_zero:
+            self.counts[0] += n_zero
+            if n_zero == values_ms.size:
+                return
+            values_ms = values_ms[~zero]
+        self.counts += np.bincount(hist_bins(values_ms), minlength=_NBINS)
 
     @property
     def mean_ms(self) -> float | None:
@@ -100,23 +108,30 @@ class Probes:
         self._u = self.u.ravel()
         self.steps = np.zeros(self.lanes * (per_lane + 1), dtype=np.int64)
 
-    def slot(self, lanes: np.ndarray, t_ms: np.ndarray) -> np.ndarray:
+    def lane_terms(self, lanes: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Per commit: its lane's window start, probes per ms and first u index, gathered
+        once for every ``slot`` call on the same commits."""
+        return self.t0[lanes], 1.0 / self.step[lanes], lanes * self.k
+
+    def slot(self, lanes: np.ndarray, t_ms: np.ndarray, terms=None) -> np.ndarray:
         """Flat index (lane, first probe at or after t); the slot past the last probe when
         t is after them all."""
         k = self.k
-        x = (t_ms - self.t0[lanes]) / self.step[lanes]
-        j = np.clip(np.floor(x), 0, k).astype(np.int64)
+        t0, per_ms, first = self.lane_terms(lanes) if terms is None else terms
+        x = (t_ms - t0) * per_ms
+        j = np.clip(x, 0, k).astype(np.int64)  # truncation is the floor once x >= 0
         inside = j < k
         jj = np.minimum(j, k - 1)
         # probe j itself is before t: the first probe at or after t is the next one
-        j += inside & (self._u[lanes * k + jj] + jj < x)
-        return lanes * (k + 1) + j
+        j += inside & (self._u[first + jj] + jj < x)
+        return first + lanes + j
 
     def add(self, lanes: np.ndarray, start_ms: np.ndarray, end_ms: np.ndarray,
-            start_slot: np.ndarray | None = None) -> None:
+            start_slot: np.ndarray | None = None, terms=None) -> None:
         """Count each commit as at risk over [start, end) (an empty span counts nothing)."""
-        a = self.slot(lanes, start_ms) if start_slot is None else start_slot
-        b = self.slot(lanes, np.maximum(end_ms, start_ms))
+        terms = self.lane_terms(lanes) if terms is None else terms
+        a = self.slot(lanes, start_ms, terms) if start_slot is None else start_slot
+        b = self.slot(lanes, np.maximum(end_ms, start_ms), terms)
         n = self.steps.size
         self.steps += np.bincount(a, minlength=n)
         self.steps -= np.bincount(b, minlength=n)
@@ -194,8 +209,9 @@ class Steady:
             if kind in self.probes:
                 p = self.probes[kind]
                 if ack_slot is None:  # every probed kind shares the instants
-                    ack_slot = p.slot(lanes, ack)
-                p.add(lanes, ack, s, ack_slot)
+                    terms = p.lane_terms(lanes)
+                    ack_slot = p.slot(lanes, ack, terms)
+                p.add(lanes, ack, s, ack_slot, terms)
 
 
 def ratio_se(sums: np.ndarray, counts: np.ndarray) -> float | None:
