@@ -241,7 +241,10 @@ class Writer:
         if self.mode == BATCHED:
             return np.maximum(e, np.minimum(f + self.window_ms, jt))
         every = self.every_ms
-        owed = (np.floor(g / every) + 1.0) * every <= e
+        # g is often a tick itself, k x every in floating point, whose quotient can fall
+        # just below k: without the nudge floor() takes the tick before, the flush reads
+        # as late and the next one starts at its end instead of at the next tick
+        owed = (np.floor(g / every + 1e-9) + 1.0) * every <= e
         nxt = np.ceil(np.maximum(f, e) / every) * every
         out = np.where(owed & (f <= e), e, nxt)
         out[f == np.inf] = np.inf
