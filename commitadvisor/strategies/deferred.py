@@ -3,9 +3,10 @@ every interval. Fast, and not durable until the flush completes.
 
 Model (open arrivals at rate lambda, quasi-static per regime): the writer starts a flush
 every I ms taking what the buffer holds (about lambda I commits); when a flush outlasts the
-interval the next one starts when it ends. The exposure window of a commit, from its
-acknowledgement to durable, is the time to the next flush start (uniform on [0, C] for a
-cycle C = max(I, flush time)) plus that flush: W = U + S (host crash or power loss); a
+wait to the next tick the next one starts when it ends, and a turn with nothing buffered is
+skipped (the phase chain of ``_phase_chain``). The exposure window of a commit, from its
+acknowledgement to durable, is the time U to the next flush start plus that flush:
+W = U + S (host crash or power loss); a
 process crash loses only what was not yet handed to the operating system: W = U. The
 number at risk at a random instant is lambda E[W] on average (Little's law) and at most the
 buffer's bound buffer_bytes / log_bytes_per_commit. A buffer that can fill between flushes
@@ -59,22 +60,23 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
             f"the bandwidth of {dev.name} (the log buffer fills and commits stall)"), 0)
     interval = s.flush_every_ms
     flush = dev.flush(lam * interval, ctx.log_bytes)
-    gap, cycle = _gap(interval, flush)
+    to_start, cycle, skipped = _starts(interval, flush, lam)
     if cycle > interval * 1.0001:
         flush = dev.flush(lam * cycle, ctx.log_bytes)
-        gap, cycle = _gap(interval, flush)
-        over = float(flush.sf(interval))
+        to_start, cycle, skipped = _starts(interval, flush, lam)
+    over = float(flush.sf(interval))
+    if over > 1e-3:
         notes.append(f"{over:.1%} of flushes outlast the {interval:g} ms interval: the next "
                      "one starts when it ends and carries more (flush starts every "
                      f"{cycle:.3g} ms on average)")
+    if skipped > 1e-3:
+        notes.append(f"{skipped:.1%} of the writer's turns find nothing buffered and are "
+                     f"skipped (about {lam * interval:.2g} commits arrive per interval)")
     cpu = station.at_cpu if station is not None else ctx.cpu_wait(lam)
     if cpu is None:
         cap = ctx.cpus / ctx.cpu_ms_per_commit
         return saturated_result(ctx.regime, ctx.time_share, saturation(
             "cpu", cap, lam, duration, "the host's CPU"), 0)
-    # a commit waits for the next flush start: the equilibrium residual of the gap between
-    # starts (uniform on [0, I] while no flush outlasts the interval)
-    to_start = L.Uniform0(interval) if gap is None else L.residual(gap)
     writer_busy = flush.mean_ms / cycle
     bound = s.buffer_bytes // ctx.log_bytes
     ack = cpu
@@ -147,45 +149,106 @@ _U = np.linspace(0.0005, 0.9995, 1000)
 _BUFFER_MODEL_MAX = 1000  # commits: the buffer chain is a dense matrix of this order
 
 
-def _gap(interval_ms: float, flush: L.Latency) -> tuple[L.Latency | None, float]:
-    """The gap between flush starts and its mean (ms); None for the gap when flushes outlast
-    the interval with chance under 1e-9 (every gap is then I).
+_PHASE_BINS = 128  # the phase of an off-grid start, in bins of I / 128
+_PHASE_U = np.concatenate([(np.arange(400) + 0.5) / 400 * 0.99,
+                           0.99 + (np.arange(100) + 0.5) / 100 * 0.00999])
+_PHASE_W = np.concatenate([np.full(400, 0.99 / 400), np.full(100, 0.00999 / 100)])
+_PHASE_W = _PHASE_W / _PHASE_W.sum()
 
-    Flushes start at the ticks k I; one that outlasts the wait for the next tick makes the
-    next start when it ends, off the grid, and the writer goes back to the grid after it. A
-    start on the grid is followed by a gap max(I, S); a start off the grid by max(V, S), V
-    the wait from it to the next tick, V = I ceil(S0 / I) - S0 for the flush S0 that ran
-    late. Starts go off the grid with chance P(S > I) from the grid and P(S > V) from off
-    it (a two-state chain; V's law is taken from one late flush, an approximation)."""
+
+def _phase_chain(interval_ms: float, flush: L.Latency, rate_per_ms: float | None):
+    """Flush starts as a Markov chain on their phase phi after the last tick (phi = 0: on
+    the grid, wait V = I to the next tick; else V = I - phi). A flush S that ends before the
+    next tick (S <= V) makes the next candidate start that tick; one that outlasts it makes
+    its own end the candidate, at phase (phi + S) mod I. A candidate with nothing buffered
+    since the start (chance exp(-lambda max(V, S)) for Poisson commits; none when
+    ``rate_per_ms`` is None) is skipped, and the next flush starts on the first tick after
+    the next commit, on the grid. Off-grid phases in 128 bins, S on 500 quantile points.
+
+    Returns (phi, V, stationary chance of each phase, S points, their weights)."""
     i = interval_ms
-    phase = tick_phase(i, flush, 400)
-    if phase is None:
-        return None, i
-    v, p_off = phase
-    x = np.linspace(0.0, i, 1025)
-    w = np.full(v.size, 1.0 / v.size)
-    wait = L.GridLatency(x, _uniforms_cdf(x, w, v, v), float(v.mean()), float((v**2).mean()),
-                         label="wait to the next tick")
-    on = L.maximum(L.Fixed(i), flush)
-    off = L.maximum(wait, flush)
-    gap = L.mixture([1 - p_off, p_off], [on, off])
-    return gap, gap.mean_ms
+    m = _PHASE_BINS
+    phi = np.concatenate([[0.0], (np.arange(m) + 0.5) * i / m])
+    wait = np.where(phi > 0, i - phi, i)
+    s = np.asarray(flush.quantile(_PHASE_U), dtype=float)
+    w = _PHASE_W
+    late = s[None, :] > wait[:, None]
+    to = np.where(late, 1 + np.minimum((np.mod(phi[:, None] + s[None, :], i) / i * m)
+                                      .astype(int), m - 1), 0)
+    if rate_per_ms is None:
+        empty = np.zeros(to.shape)
+    else:
+        empty = np.exp(-rate_per_ms * np.maximum(wait[:, None], s[None, :]))
+    p = np.zeros((m + 1, m + 1))
+    for j in range(m + 1):
+        p[j] = np.bincount(to[j], weights=w * (1 - empty[j]), minlength=m + 1)
+        p[j, 0] += float(w @ empty[j])
+    a = p.T - np.eye(m + 1)
+    a[-1, :] = 1.0
+    rhs = np.zeros(m + 1)
+    rhs[-1] = 1.0
+    pi = np.clip(np.linalg.solve(a, rhs), 0.0, None)
+    return phi, wait, pi / pi.sum(), s, w
+
+
+def _starts(interval_ms: float, flush: L.Latency,
+            rate_per_ms: float) -> tuple[L.Latency, float, float]:
+    """(a commit's wait for the next flush start (ms), the mean gap between flush starts
+    (ms), the share of ticks skipped for an empty buffer), by ``_phase_chain``.
+
+    A commit waits for the next candidate start (the flush after it will not be skipped: it
+    holds this commit). Candidates follow each flush start after max(V, S); when skipped,
+    the next tick comes T1 later (I after a tick, I - phi' after a late flush's end at
+    phase phi') and then every I until a commit has arrived. The wait from a random instant
+    is uniform over the stretch between candidates it falls in, each stretch weighted by
+    its length (renewal reward)."""
+    i, lam = interval_ms, rate_per_ms
+    if float(flush.sf(i)) < 1e-9:
+        # every flush ends before the next tick: every stretch between turns is I, and a
+        # flush starts on the first tick after a commit arrives (gap I (1 + geometric))
+        skipped = float(np.exp(-lam * i))
+        return L.Uniform0(i), i / -np.expm1(-lam * i), skipped
+    phi, wait, pi, s, w = _phase_chain(i, flush, lam)
+    g = np.maximum(wait[:, None], s[None, :])
+    late = s[None, :] > wait[:, None]
+    after = np.mod(phi[:, None] + s[None, :], i)
+    t1 = np.where(late & (after > 0), i - after, i)
+    empty = np.exp(-lam * g)
+    # full ticks after the first one: N = 0 if a commit comes within T1, else 1 + geometric
+    more = np.exp(-lam * t1) / -np.expm1(-lam * i)
+    weight = pi[:, None] * w[None, :]
+    cycle = float((weight * (g + empty * (t1 + i * more))).sum())
+    stretch = np.concatenate([g.ravel(), t1.ravel(), [i]])
+    share = np.concatenate([(weight * g).ravel(), (weight * empty * t1).ravel(),
+                            [float((weight * empty * more).sum()) * i]])
+    share = share / share.sum()
+    x = np.concatenate([np.linspace(0.0, i, 1025)[:-1],
+                        np.geomspace(i, max(float(stretch.max()), i * 1.001), 1024)])
+    to_start = L.GridLatency(x, _uniforms_cdf(x, share, np.zeros_like(stretch), stretch),
+                             float(share @ stretch) / 2, float(share @ stretch**2) / 3,
+                             label="wait for the next flush start")
+    skipped = float((weight * empty).sum())
+    return to_start, cycle, skipped
 
 
 def tick_phase(interval_ms: float, flush: L.Latency,
                points: int) -> tuple[np.ndarray, float] | None:
-    """(V at ``points`` equally likely late flushes, chance that a start is off the grid)
-    for the two-state chain of ``_gap``; None when flushes outlast the interval with chance
-    under 1e-9."""
+    """(the wait V from an off-grid flush start to the next tick at ``points`` equally likely
+    quantiles, the chance that a start is off the grid) from ``_phase_chain`` without empty
+    ticks; None when flushes outlast the interval with chance under 1e-9."""
     i = interval_ms
-    late = float(flush.sf(i))
-    if late < 1e-9:
+    if float(flush.sf(i)) < 1e-9:
         return None
-    u = float(flush.cdf(i)) + late * (np.arange(points) + 0.5) / points
-    s0 = np.asarray(flush.quantile(np.minimum(u, 1 - 1e-12)), dtype=float)
-    v = np.clip(i * np.ceil(s0 / i) - s0, 0.0, i)
-    late_off = float(np.mean(flush.sf(v)))
-    return v, late / (1 - late_off + late)
+    _, _, pi, _, _ = _phase_chain(i, flush, None)
+    p_off = float(1.0 - pi[0])
+    if p_off < 1e-12:
+        return None
+    # off-grid waits: bin j holds V uniformly in [I - (j + 1) I / m, I - j I / m]
+    m = _PHASE_BINS
+    cdf = np.concatenate([[0.0], np.cumsum(pi[1:][::-1])]) / p_off
+    edges = np.arange(m + 1) * i / m
+    u = (np.arange(points) + 0.5) / points
+    return np.interp(u, cdf, edges), p_off
 
 
 # probability points of a stall's duration law, dense in the upper tail, and their weights

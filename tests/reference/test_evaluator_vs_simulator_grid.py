@@ -169,10 +169,6 @@ KNOWN_LIMITS: dict[str, tuple[tuple[str, ...], str]] = {
         _TAIL, "the closed batched chain approximates the oldest pending commit's age"),
     "batched-open-ln20-gather0.5msx8-busy40": (
         _TAIL, "p99/p50 = 20: the gathering's joint law is taken on 65 flush-length points"),
-    "deferred-open-ln2-buf4096k-busy90": (
-        ("process_crash.window_mean_ms",),
-        "flushes that nearly always outlast the interval: the tick phase after them is "
-        "approximated"),
 }
 
 
