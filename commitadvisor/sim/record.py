@@ -26,6 +26,7 @@ _LO_MS = 1e-4
 _PER_DECADE = 200
 _DECADES = 12
 _NBINS = _PER_DECADE * _DECADES + 2  # under, grid, over
+_PROBE_BULK = 1 << 21  # commits' slots held before they are counted (16 MiB a side)
 
 
 def hist_bins(values_ms: np.ndarray, per_decade: int = _PER_DECADE) -> np.ndarray:
@@ -105,26 +106,29 @@ class Probes:
         self.step = (t1 - t0) / per_lane
         self.lanes = t0.size
         self.u = rng.random((self.lanes, per_lane)) if u is None else u
-        self._u = self.u.ravel()
+        # each lane's u with one more column, +inf, for the slot past its last probe
+        self._u = np.concatenate([self.u, np.full((self.lanes, 1), np.inf)], axis=1).ravel()
         self.steps = np.zeros(self.lanes * (per_lane + 1), dtype=np.int64)
+        self._starts: list[np.ndarray] = []
+        self._ends: list[np.ndarray] = []
+        self._pending = 0
 
     def lane_terms(self, lanes: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Per commit: its lane's window start, probes per ms and first u index, gathered
-        once for every ``slot`` call on the same commits."""
-        return self.t0[lanes], 1.0 / self.step[lanes], lanes * self.k
+        """Per commit: its lane's window start, probes per ms and first slot, gathered once
+        for every ``slot`` call on the same commits."""
+        return self.t0[lanes], 1.0 / self.step[lanes], lanes * (self.k + 1)
 
     def slot(self, lanes: np.ndarray, t_ms: np.ndarray, terms=None) -> np.ndarray:
         """Flat index (lane, first probe at or after t); the slot past the last probe when
         t is after them all."""
-        k = self.k
         t0, per_ms, first = self.lane_terms(lanes) if terms is None else terms
         x = (t_ms - t0) * per_ms
-        j = np.clip(x, 0, k).astype(np.int64)  # truncation is the floor once x >= 0
-        inside = j < k
-        jj = np.minimum(j, k - 1)
-        # probe j itself is before t: the first probe at or after t is the next one
-        j += inside & (self._u[first + jj] + jj < x)
-        return first + lanes + j
+        j = np.clip(x, 0, self.k).astype(np.int64)  # truncation is the floor once x >= 0
+        at = first + j
+        # probe j itself is before t: the first probe at or after t is the next one (never
+        # past the slot after the last probe, whose u is +inf)
+        at += self._u[at] + j < x
+        return at
 
     def add(self, lanes: np.ndarray, start_ms: np.ndarray, end_ms: np.ndarray,
             start_slot: np.ndarray | None = None, terms=None) -> None:
@@ -132,11 +136,24 @@ class Probes:
         terms = self.lane_terms(lanes) if terms is None else terms
         a = self.slot(lanes, start_ms, terms) if start_slot is None else start_slot
         b = self.slot(lanes, np.maximum(end_ms, start_ms), terms)
+        # slots are counted in bulk: one pass over the (large) step array per few million
+        # commits rather than one per batch
+        self._starts.append(a)
+        self._ends.append(b)
+        self._pending += a.size
+        if self._pending >= _PROBE_BULK:
+            self._count()
+
+    def _count(self) -> None:
+        if not self._starts:
+            return
         n = self.steps.size
-        self.steps += np.bincount(a, minlength=n)
-        self.steps -= np.bincount(b, minlength=n)
+        self.steps += np.bincount(np.concatenate(self._starts), minlength=n)
+        self.steps -= np.bincount(np.concatenate(self._ends), minlength=n)
+        self._starts, self._ends, self._pending = [], [], 0
 
     def values(self) -> np.ndarray:
+        self._count()
         d = self.steps.reshape(self.lanes, self.k + 1)
         return np.cumsum(d, axis=1)[:, :self.k].ravel()
 
