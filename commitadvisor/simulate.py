@@ -56,11 +56,13 @@ of the 30 to 60 numpy calls of a step (a few microseconds each) shared by the la
 speed falls with fewer lanes: long warm-ups (stalls, long flush intervals) or many sessions
 per lane. The open CPU station is a sequential recursion over each lane's arrivals (one
 step per arrival of every lane) and costs about as much as the writer. Measured on the
-shipped ledger case (tests/benchmarks/bench_simulator.py): about 1 to 3 million commits
-per CPU second per strategy in open workloads; closed sessions with a CPU station run at a
-few hundred thousand. Memory is bounded by the histograms (log-spaced, 200 bins per
-decade), at most 2^20 at-risk probes and the buffer of commits not yet flushed, not by the
-number of commits: about 450 MiB at most for ten million commits.
+shipped ledger case (tests/benchmarks/bench_simulator.py): about 2 to 3 million commits
+per CPU second per strategy in open workloads, about 6 million for deferred commit (no
+wait to record); closed sessions with a CPU station run at a few hundred thousand. Memory
+is bounded by the histograms (log-spaced, 200 bins per decade), at most 2^20 at-risk
+probes with two million commits' probe slots held for bulk counting, and the buffer of
+commits not yet flushed, not by the number of commits: about 400 MiB resident for ten
+million commits.
 """
 
 from __future__ import annotations
