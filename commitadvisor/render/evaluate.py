@@ -15,11 +15,12 @@ __all__ = ["render_table", "render_json"]
 def _ms(v: float | None) -> str:
     if v is None:
         return "-"
+    v = float(f"{v:.9g}")  # the JSON's rounding first, so both read alike on a boundary
     return f"{v:.3g}" if v < 100 else f"{v:,.0f}"
 
 
 def _count(v: float | None) -> str:
-    return "-" if v is None else (f"{v:.3g}" if v < 100 else f"{v:,.0f}")
+    return "-" if v is None else _ms(v)
 
 
 def _exposure_cell(r: RegimeResult, failure: str) -> str:

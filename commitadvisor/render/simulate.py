@@ -38,6 +38,7 @@ def simulate_progress(console: Console) -> Iterator[Callable[[float], None]]:
 def _ms(v: float | None) -> str:
     if v is None:
         return "-"
+    v = float(f"{v:.9g}")  # the JSON's rounding first, so both read alike on a boundary
     return f"{v:.3g}" if v < 100 else f"{v:,.0f}"
 
 
