@@ -257,7 +257,7 @@ def _wait_from_flush_arrival(flush: L.Latency, lam: float, k: int, window: float
     when n >= k). P(D > x) = P(max(r, window - e) > x) P(r + Gamma > x), given the counts."""
     from scipy.stats import poisson
 
-    u_s = _U_FLUSH[::2]
+    u_s = _U_FLUSH
     s = np.maximum(np.asarray(flush.quantile(u_s), dtype=float), 1e-12)
     w_s = np.diff(np.concatenate([[0.0], (u_s[1:] + u_s[:-1]) / 2, [1.0]])) * s
     v = (np.arange(8) + 0.5) / 8

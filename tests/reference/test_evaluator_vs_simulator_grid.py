@@ -167,8 +167,6 @@ _TAIL = ("ack_p99_ms", "durable_p99_ms")
 KNOWN_LIMITS: dict[str, tuple[tuple[str, ...], str]] = {
     "batched-closed-exp-ln2-gather1msx8-busy50": (
         _TAIL, "the closed batched chain approximates the oldest pending commit's age"),
-    "batched-open-ln20-gather0.5msx8-busy40": (
-        _TAIL, "p99/p50 = 20: the gathering's joint law is taken on 65 flush-length points"),
 }
 
 
