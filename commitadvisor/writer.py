@@ -418,6 +418,13 @@ def _binomial_cdf_below(j: int, m: int, q: np.ndarray) -> np.ndarray:
     return bdtr(j - 1, m, q) if j > 0 else np.zeros_like(q)
 
 
+# probability points (midpoints, denser in the tail) for the rest of a flush in progress
+_U_REST = np.concatenate([(np.arange(900) + 0.5) / 900 * 0.99,
+                          0.99 + (np.arange(100) + 0.5) / 100 * 0.0099])
+_W_REST = np.concatenate([np.full(900, 0.99 / 900), np.full(100, 0.0099 / 100)])
+_W_REST = _W_REST / _W_REST.sum()
+
+
 def closed_batched_commit(flush_for_batch, sessions: int, think_ms: float, window_ms: float,
                           target: int) -> ClosedGroupCommit:
     """Batched commit with N sessions and exponential think time Z: an embedded chain at
@@ -506,15 +513,42 @@ def closed_batched_commit(flush_for_batch, sessions: int, think_ms: float, windo
     else:
         left_of_flush = _time_left(ss, ws / ws.sum(), z)
         share_flush = ws.sum() / (ws.sum() + w_gather)
-    # the gathering a commit sees is scaled so that the law's mean equals the chain's exact
-    # mean N/X - Z; only the split of that wait between gathering and flush is approximate
-    base = next_flush.mean_ms + share_flush * left_of_flush.mean_ms
-    g_eff = float(np.clip(mean_r - base, 0.0, 2 * max(g_typ, 0.0))) if g_typ > 0 else 0.0
+    # A commit that arrives during a flush waits what is left of it, r, and then the
+    # gathering, which ends by the oldest pending commit's window at the latest: that commit
+    # is at least r old, so the wait to the next flush is max(r, min(r + g, W)). The
+    # gathering g is set so that the law's mean equals the chain's exact mean N/X - Z; only
+    # the split of that wait between gathering and flush is approximate.
+    r_pts = (np.asarray(left_of_flush.quantile(_U_REST), dtype=float) if share_flush > 0
+             else np.zeros(1))
+
+    def to_next(g: float) -> np.ndarray:
+        return np.maximum(r_pts, np.minimum(r_pts + g, window_ms))
+
+    def mean_for(g: float) -> float:
+        rest = float(_W_REST @ to_next(g)) if share_flush > 0 else 0.0
+        return next_flush.mean_ms + (1 - share_flush) * g + share_flush * rest
+
+    g_eff = 0.0
+    if g_typ > 0 and mean_for(0.0) < mean_r:
+        lo, hi = 0.0, 2 * g_typ
+        if mean_for(hi) <= mean_r:
+            lo = hi
+        for _ in range(40):
+            mid = (lo + hi) / 2
+            lo, hi = (mid, hi) if mean_for(mid) < mean_r else (lo, mid)
+        g_eff = lo
     after_gather = (L.convolve(L.Uniform0(2 * g_eff), next_flush) if g_eff > 0
                     else next_flush)
     if share_flush == 0:
         response = after_gather
     else:
-        during_flush = L.convolve(left_of_flush, L.add_constant(next_flush, g_eff))
+        d = to_next(g_eff)
+        grid = np.linspace(0.0, max(float(d.max()), 1e-9), 2049)
+        wait = L.GridLatency(grid, np.interp(grid, np.sort(d),
+                                             np.cumsum(_W_REST[np.argsort(d)]),
+                                             left=0.0, right=1.0),
+                             float(_W_REST @ d), float(_W_REST @ d**2),
+                             label="rest of the flush, then the gathering")
+        during_flush = L.convolve(wait, next_flush)
         response = L.mixture([1 - share_flush, share_flush], [after_gather, during_flush])
     return ClosedGroupCommit(x, response, mean_r, mean_batch, flushes, busy)

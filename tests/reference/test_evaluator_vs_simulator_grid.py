@@ -164,10 +164,7 @@ _TAIL = ("ack_p99_ms", "durable_p99_ms")
 # Cells where an approximation of the evaluator is inherently limited (README, "Known
 # limits"). Each stays flagged by `evaluate --verify`; the test pins that the difference is
 # still beyond the tolerance, so a model that comes to agree must leave this table.
-KNOWN_LIMITS: dict[str, tuple[tuple[str, ...], str]] = {
-    "batched-closed-exp-ln2-gather1msx8-busy50": (
-        _TAIL, "the closed batched chain approximates the oldest pending commit's age"),
-}
+KNOWN_LIMITS: dict[str, tuple[tuple[str, ...], str]] = {}
 
 
 def test_known_limits_name_grid_cases():
