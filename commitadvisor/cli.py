@@ -304,7 +304,10 @@ def evaluate(
                                       "simulation (same case and seed, same output).")] = 1,
     commits: Annotated[int | None, typer.Option("--commits", min=100, help="Measured commits "
                                                 "per regime and strategy in the --verify "
-                                                "simulation (default: the simulator's).")
+                                                "simulation (default: the simulator's). "
+                                                "Raise it where a tail rests on rare slow "
+                                                "flushes or stalls: a flagged figure there "
+                                                "can be the simulation's own noise.")
                        ] = None,
     no_color: NoColor = False,
 ) -> None:
