@@ -88,6 +88,15 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         return dev.flush(b, ctx.log_bytes)
 
     if can_fill(lam, interval, bound, flush_for):
+        # with the buffer full at every flush each flush takes K records, and flushes start
+        # by the phase chain with no turn skipped: beyond K / that cycle the backlog grows
+        # without end
+        _, full_cycle, _ = _starts(interval, flush_for(bound), 1e9)
+        cap = bound / full_cycle
+        if lam >= 0.98 * cap:
+            return saturated_result(ctx.regime, ctx.time_share, saturation(
+                f"buffer:{dev.name}", cap, lam, duration,
+                f"the log buffer ({bound} commits, flushed every {interval:g} ms)"), 0)
         if bound <= _BUFFER_MODEL_MAX:
             waits = buffer_waits(lam, interval, bound, flush_for,
                                  lambda f, n: tick_phase(interval, f, n))
