@@ -181,8 +181,8 @@ def capacity(strategy, host: HostParams, devices: dict[str, DeviceParams],
     a writer that takes every pending commit is bounded by its device's bandwidth (a flush
     of b commits lasts at least b x log bytes / bandwidth, and the device makes no progress
     while stalled); one flush per commit by 1 / mean flush; the deferred buffer by
-    buffer commits / mean flush of a full buffer (a full buffer's commits all wait on one
-    flush). Stalls reduce the device's usable time by their share of time. Closed workloads
+    buffer commits / max(interval, mean flush of a full buffer) (a full buffer's commits all
+    wait on one flush, and flushes start at most once an interval on average). Stalls reduce the device's usable time by their share of time. Closed workloads
     never grow a backlog (at most N commits wait) and get None.
     """
     if host.kind == "closed":
@@ -207,7 +207,10 @@ def capacity(strategy, host: HostParams, devices: dict[str, DeviceParams],
         if kind == "deferred":
             cap = strategy.buffer_bytes // host.log_bytes
             s_full = _flush_mean_ms(dev, host, r, cap)
-            out.append(Capacity(f"buffer:{name}", up * cap / s_full,
+            # a full buffer empties by at most K commits a flush, and flush starts come at
+            # most once an interval on average (each uses up a tick) and one flush apart
+            gap = max(strategy.flush_every_ms, s_full)
+            out.append(Capacity(f"buffer:{name}", up * cap / gap,
                                 f"the log buffer in front of {name}"))
     if not out:
         return None
