@@ -153,7 +153,8 @@ def _strategy_entry(g: GridSpec) -> dict:
             "flush_every_ms": g.flush_every_ms,
             "buffer_bytes": g.buffer_bytes,
         }
-    # the simulator does not model the shared-cause share: 0 on both sides
+    # the grid checks independent devices (share 0); tests/reference/test_dual_shared_cause.py
+    # checks a share above 0
     return {
         "kind": "dual_device",
         "devices": ["a", "b"],
