@@ -182,8 +182,9 @@ def capacity(strategy, host: HostParams, devices: dict[str, DeviceParams],
     of b commits lasts at least b x log bytes / bandwidth, and the device makes no progress
     while stalled); one flush per commit by 1 / mean flush; the deferred buffer by
     buffer commits / max(interval, mean flush of a full buffer) (a full buffer's commits all
-    wait on one flush, and flushes start at most once an interval on average). Stalls reduce the device's usable time by their share of time. Closed workloads
-    never grow a backlog (at most N commits wait) and get None.
+    wait on one flush, and flushes start at most once an interval on average). Stalls
+    reduce the device's usable time by their share of time. Closed workloads never grow a
+    backlog (at most N commits wait) and get None.
     """
     if host.kind == "closed":
         return None
