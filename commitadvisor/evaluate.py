@@ -72,13 +72,17 @@ def _blend_exposure(case: Case, failure: str, rs: tuple[RegimeResult, ...]) -> E
                  "at-risk mean and p99.9 from the time-weighted mixture")
     else:
         mixed = None
-        p99 = max(e.window_p99_ms for e in es)
-        p999 = max(e.window_p999_ms for e in es)
+        # a regime whose buffer stays full has commits at risk but no steady window
+        windows = all(e.window_mean_ms is not None for e in es)
+        p99 = max(e.window_p99_ms for e in es) if windows else None
+        p999 = max(e.window_p999_ms for e in es) if windows else None
         at_risk_p999 = max(e.at_risk_p999 for e in es)
         basis = "time-weighted mean over the regimes; percentiles are the worst regime's"
+    window_mean = (sum(r.commit_share * e.window_mean_ms for r, e in zip(rs, es, strict=True))
+                   if all(e.window_mean_ms is not None for e in es) else None)
     return Exposure(
         failure=failure,
-        window_mean_ms=sum(r.commit_share * e.window_mean_ms for r, e in zip(rs, es, strict=True)),
+        window_mean_ms=window_mean,
         window_p99_ms=p99,
         window_p999_ms=p999,
         at_risk_mean=at_risk,

@@ -11,6 +11,7 @@ from typing import Any
 
 __all__ = [
     "FAILURE_KINDS",
+    "json_float",
     "Saturation",
     "Exposure",
     "RegimeResult",
@@ -59,7 +60,9 @@ class Exposure:
 
     @property
     def can_lose(self) -> bool:
-        return self.unbounded or (self.window_p999_ms or 0.0) > 0.0
+        # a window above zero, or commits at risk without a steady window (a full buffer)
+        return (self.unbounded or (self.window_p999_ms or 0.0) > 0.0
+                or (self.at_risk_mean or 0.0) > 0.0)
 
 
 @dataclass(frozen=True)
@@ -148,5 +151,11 @@ def to_plain(obj: Any) -> Any:
     if isinstance(obj, list | tuple):
         return [to_plain(v) for v in obj]
     if isinstance(obj, float):
-        return float(f"{obj:.9g}")
+        return json_float(obj)
     return obj
+
+
+def json_float(x: float) -> float:
+    """``x`` rounded to the 9 significant figures every JSON document carries (text formats
+    round through it too, so a figure on a rounding boundary reads alike in all)."""
+    return float(f"{x:.9g}")

@@ -18,6 +18,8 @@ def make_console(no_color: bool = False, stderr: bool = False, width: int | None
         no_color=plain,
         color_system=None if plain else "auto",
         highlight=False,
+        # names such as "buffer:a:" must print as written, not as emoji codes
+        emoji=False,
         soft_wrap=False,
         width=width or (120 if plain else None),
     )

@@ -11,7 +11,7 @@ from commitadvisor.case import Case
 from commitadvisor.results import FAILURE_KINDS, Exposure, RegimeResult, Saturation
 
 __all__ = ["Partial", "safe", "unbounded", "from_window", "assemble", "saturated_result",
-           "mixed_poisson_quantile", "at_risk_quantile"]
+           "full_buffer", "mixed_poisson_quantile", "at_risk_quantile"]
 
 
 @dataclass(frozen=True)
@@ -123,10 +123,13 @@ def assemble(regime: str, time_share: float, p: Partial) -> RegimeResult:
 
 
 def saturated_result(regime: str, time_share: float, sat: Saturation, copies: int,
-                     notes: tuple[str, ...] = ()) -> RegimeResult:
-    """A regime that cannot keep up: the saturation, and no latency figures."""
-    none_exp = tuple(Exposure(k, None, None, None, None, None, None, None, None, False,
-                              "saturated: no steady state") for k in FAILURE_KINDS)
+                     notes: tuple[str, ...] = (),
+                     exposures: tuple[Exposure, ...] | None = None) -> RegimeResult:
+    """A regime that cannot keep up: the saturation, and no latency figures. ``exposures``
+    where the loss is still known (a deferred buffer that stays full); else none."""
+    none_exp = exposures or tuple(Exposure(k, None, None, None, None, None, None, None, None,
+                                           False, "saturated: no steady state")
+                                  for k in FAILURE_KINDS)
     return RegimeResult(
         regime=regime, time_share=time_share, commit_share=0.0,
         throughput_per_s=sat.saturating_rate_per_s,
@@ -153,3 +156,13 @@ def saturation(resource: str, capacity_per_ms: float, offered_per_ms: float,
                  + (f" (about {growth * regime_duration_s:.0f} commits over the "
                     f"{regime_duration_s:g} s regime)" if regime_duration_s else "")),
     )
+
+
+def full_buffer(case: Case, failure: str, bound: float) -> Exposure:
+    """A buffer that stays full (its flushes cannot keep up): every instant holds ``bound``
+    acknowledged commits that this failure would take; no steady window exists."""
+    per_year = getattr(case.recovery, failure).per_year
+    lost = per_year * bound
+    value = lost * case.recovery.value_per_commit if case.recovery.value_per_commit else None
+    return Exposure(failure, None, None, None, float(bound), float(bound), float(bound), lost,
+                    value, False, "saturated: the log buffer stays full")

@@ -26,6 +26,7 @@ from commitadvisor.strategies.common import (
     Partial,
     assemble,
     from_window,
+    full_buffer,
     saturated_result,
     saturation,
     unbounded,
@@ -53,11 +54,20 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
             lam = ctx.sessions / max(ctx.think_ms, 1e-9)
     else:
         lam = ctx.open_rate_per_ms
+    bound = s.buffer_bytes // ctx.log_bytes
+    # when the flushes cannot keep up the buffer stays full: a crash takes all it holds
+    full = (full_buffer(case, "process_crash", bound),
+            full_buffer(case, "host_crash", bound) if dev.device.counts_as_durable else
+            unbounded("host_crash", f"{dev.name} has a volatile write cache not declared "
+                      "as honouring flushes"),
+            unbounded("device_loss", "one copy: losing this device loses every commit "
+                      "that only it holds"))
     bw_cap = dev.bandwidth_bytes_per_ms / ctx.log_bytes
     if lam >= bw_cap:
         return saturated_result(ctx.regime, ctx.time_share, saturation(
             f"bandwidth:{dev.name}", bw_cap, lam, duration,
-            f"the bandwidth of {dev.name} (the log buffer fills and commits stall)"), 0)
+            f"the bandwidth of {dev.name} (the log buffer fills and commits stall)"), 0,
+            exposures=full)
     interval = s.flush_every_ms
     flush = dev.flush(lam * interval, ctx.log_bytes)
     to_start, cycle, skipped = _starts(interval, flush, lam)
@@ -78,7 +88,6 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         return saturated_result(ctx.regime, ctx.time_share, saturation(
             "cpu", cap, lam, duration, "the host's CPU"), 0)
     writer_busy = flush.mean_ms / cycle
-    bound = s.buffer_bytes // ctx.log_bytes
     ack = cpu
     window_host = L.convolve(to_start, flush)
     durable = None
@@ -96,7 +105,8 @@ def evaluate_regime(case: Case, s, ctx: RegimeContext) -> RegimeResult:
         if lam >= 0.98 * cap:
             return saturated_result(ctx.regime, ctx.time_share, saturation(
                 f"buffer:{dev.name}", cap, lam, duration,
-                f"the log buffer ({bound} commits, flushed every {interval:g} ms)"), 0)
+                f"the log buffer ({bound} commits, flushed every {interval:g} ms)"), 0,
+                exposures=full)
         if bound <= _BUFFER_MODEL_MAX:
             waits = buffer_waits(lam, interval, bound, flush_for,
                                  lambda f, n: tick_phase(interval, f, n))

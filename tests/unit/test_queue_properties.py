@@ -88,3 +88,12 @@ def test_a_buffer_that_cannot_carry_the_rate_is_saturation():
     r = evaluate(case).strategies[0].regimes[0]
     assert r.saturation is not None and r.saturation.resource == "buffer:a"
     assert r.ack_mean_ms is None
+    # the buffer stays full: a crash takes all four acknowledged commits it holds, and the
+    # advice says so with the figure
+    host = r.exposure("host_crash")
+    assert host.at_risk_mean == host.at_risk_bound == 4 and host.can_lose
+    from commitadvisor.cautions import cautions_for
+
+    texts = [c.text for c in cautions_for(case, evaluate(case).strategies[0])
+             if c.topic == "loss"]
+    assert any("up to 4" in t and "acknowledged commits can be lost" in t for t in texts)
