@@ -29,7 +29,13 @@ from dataclasses import dataclass
 from typing import Any
 
 from commitadvisor.case import Case, DualDevice
-from commitadvisor.results import FAILURE_KINDS, Evaluation, RegimeResult, StrategyResult
+from commitadvisor.results import (
+    FAILURE_KINDS,
+    Evaluation,
+    RegimeResult,
+    StrategyResult,
+    json_float,
+)
 
 __all__ = [
     "SEVERITIES",
@@ -301,9 +307,7 @@ def format_value(value: float | bool | None, unit: str, currency: str | None = N
     if unit == "copies":
         n = int(round(value))
         return f"{n} cop{'y' if n == 1 else 'ies'}"
-    # first to the 9 significant figures the JSON documents carry, so that a figure on a
-    # rounding boundary reads the same in every format
-    value = float(f"{value:.9g}")
+    value = json_float(value)
     text = f"{value:,.0f}" if unit == "commits" and abs(value) >= 10 else _sig(value)
     suffix = {"ms": " ms", "commits": " commits", "copies": " copies", "per_s": "/s",
               "per_year": "/year", "s": " s", "us": " us"}.get(unit, "")

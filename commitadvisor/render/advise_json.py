@@ -12,6 +12,7 @@ import math
 from typing import Any
 
 from commitadvisor.ranking import Advice, OptionRow
+from commitadvisor.results import json_float
 
 __all__ = ["ADVICE_FORMAT_VERSION", "advice_document", "render_json"]
 
@@ -23,7 +24,7 @@ def _num(v: float | None) -> float | str | None:
         return None
     if math.isinf(v):
         return "unbounded"
-    return float(f"{v:.9g}")
+    return json_float(v)
 
 
 def _pairs(pairs: tuple[tuple[str, float | None], ...]) -> dict[str, Any]:

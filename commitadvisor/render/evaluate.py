@@ -7,7 +7,13 @@ import json
 from rich.console import Console
 from rich.table import Table
 
-from commitadvisor.results import JSON_FORMAT_VERSION, Evaluation, RegimeResult, to_plain
+from commitadvisor.results import (
+    JSON_FORMAT_VERSION,
+    Evaluation,
+    RegimeResult,
+    json_float,
+    to_plain,
+)
 
 __all__ = ["render_table", "render_json"]
 
@@ -15,7 +21,7 @@ __all__ = ["render_table", "render_json"]
 def _ms(v: float | None) -> str:
     if v is None:
         return "-"
-    v = float(f"{v:.9g}")  # the JSON's rounding first, so both read alike on a boundary
+    v = json_float(v)
     return f"{v:.3g}" if v < 100 else f"{v:,.0f}"
 
 

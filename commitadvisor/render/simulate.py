@@ -12,7 +12,7 @@ from rich.progress import BarColumn, Progress, TaskProgressColumn, TextColumn, T
 from rich.table import Table
 
 from commitadvisor.render.evaluate import render_table
-from commitadvisor.results import JSON_FORMAT_VERSION, to_plain
+from commitadvisor.results import JSON_FORMAT_VERSION, json_float, to_plain
 from commitadvisor.simulate import Simulation, WindowRow
 
 __all__ = ["render_simulation", "simulation_json", "series_csv", "simulate_progress"]
@@ -38,7 +38,7 @@ def simulate_progress(console: Console) -> Iterator[Callable[[float], None]]:
 def _ms(v: float | None) -> str:
     if v is None:
         return "-"
-    v = float(f"{v:.9g}")  # the JSON's rounding first, so both read alike on a boundary
+    v = json_float(v)
     return f"{v:.3g}" if v < 100 else f"{v:,.0f}"
 
 
