@@ -542,13 +542,7 @@ def closed_batched_commit(flush_for_batch, sessions: int, think_ms: float, windo
     if share_flush == 0:
         response = after_gather
     else:
-        d = to_next(g_eff)
-        grid = np.linspace(0.0, max(float(d.max()), 1e-9), 2049)
-        wait = L.GridLatency(grid, np.interp(grid, np.sort(d),
-                                             np.cumsum(_W_REST[np.argsort(d)]),
-                                             left=0.0, right=1.0),
-                             float(_W_REST @ d), float(_W_REST @ d**2),
-                             label="rest of the flush, then the gathering")
+        wait = L.from_points(to_next(g_eff), _W_REST, "rest of the flush, then the gathering")
         during_flush = L.convolve(wait, next_flush)
         response = L.mixture([1 - share_flush, share_flush], [after_gather, during_flush])
     return ClosedGroupCommit(x, response, mean_r, mean_batch, flushes, busy)

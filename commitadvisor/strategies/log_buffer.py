@@ -86,13 +86,6 @@ class _Histogram:
                              float(self.moments[2] / t), label=label)
 
 
-def _points(v: np.ndarray, w: np.ndarray, label: str) -> L.GridLatency:
-    """The law of the weighted points (v, w)."""
-    h = _Histogram(max(float(np.max(v)), 1e-9), 2049)
-    h.add(v, w)
-    return h.law(label)
-
-
 def _poisson_sf(j: int, mean: np.ndarray) -> np.ndarray:
     """P(Poisson(mean) > j)."""
     from scipy.special import pdtrc
@@ -237,7 +230,7 @@ def buffer_waits(rate_per_ms: float, interval_ms: float, bound: int, flush_for,
     total = free.total + at_end.total + sum(h.total for h in later)
     # acknowledged at the end of a later (full) flush S: then to the tick after it, (I - S)+
     q = np.asarray(full.quantile(_UQ), dtype=float)
-    after_full = _points(np.maximum(i - q, 0.0), _WQ, "to the tick after a flush")
+    after_full = L.from_points(np.maximum(i - q, 0.0), _WQ, "to the tick after a flush")
     weights = [free.total / total]
     ack_laws: list[L.Latency] = [L.Fixed(0.0)]
     start_laws: list[L.Latency] = [free.law("to the next flush start")]

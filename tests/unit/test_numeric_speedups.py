@@ -193,3 +193,20 @@ def test_binomial_mixture_matches_scipy(n):
     w /= w.sum()
     ref = w @ stats.binom.pmf(np.arange(n + 1)[None, :], n, p[:, None])
     assert np.allclose(W._binomial_mixture(w, n, p), ref, rtol=1e-11, atol=1e-250)
+
+
+def test_from_points_keeps_the_moments_and_the_quantiles():
+    # the weighted points' own mean, second moment and quantiles (numpy on the sorted points)
+    rng = np.random.default_rng(3)
+    v = rng.exponential(2.0, 5000)
+    w = rng.random(5000)
+    law = L.from_points(v, w)
+    p = w / w.sum()
+    assert law.mean_ms == pytest.approx(float(p @ v), rel=1e-12)
+    assert law.second_moment_ms2 == pytest.approx(float(p @ v**2), rel=1e-12)
+    order = np.argsort(v)
+    cum = np.cumsum(p[order])
+    for q in (0.5, 0.9, 0.99):
+        want = v[order][np.searchsorted(cum, q)]
+        # masses sit on a grid of 2048 steps over [0, max]: one step of slack
+        assert abs(float(law.quantile(q)) - want) <= v.max() / 2048 + 1e-12
